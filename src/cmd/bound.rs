@@ -1,0 +1,258 @@
+//! `riskbound bound`: bounds on the true risk of one file of labelled predictions, per group.
+//!
+//! Reads the file once, streaming; each group keeps O(1) statistics, plus its losses only when
+//! the betting method is asked for (betting depends on the order of the losses). Any bad row
+//! stops the command with a located error and no partial output: a bound computed from a file
+//! with silently skipped rows would certify data the user did not give.
+
+use std::collections::HashMap;
+use std::io::{Read, Write};
+use std::time::{Duration, Instant};
+
+use crate::estimate::{self, Bounds, Confidence, LossSummary, Method};
+use crate::ingest::{for_each_row, DecodeError, Format, Row};
+use crate::loss::{self, LossSpec};
+
+/// Where the losses come from in each row.
+#[derive(Clone, Debug, PartialEq)]
+pub enum LossSource {
+    /// A precomputed loss column.
+    Column(String),
+    /// A loss computed from a prediction and a label column.
+    Compare { prediction: String, label: String },
+}
+
+/// Validated settings for one run.
+#[derive(Clone, Debug)]
+pub struct Plan {
+    /// Name used in messages (the path, or `<stdin>`).
+    pub file_label: String,
+    pub format: Format,
+    pub source: LossSource,
+    pub loss: LossSpec,
+    pub group_by: Option<String>,
+    pub confidence: Confidence,
+    /// Methods asked for explicitly; empty means every method that applies.
+    pub methods: Vec<Method>,
+}
+
+/// The bounds of one group.
+#[derive(Clone, Debug)]
+pub struct GroupReport {
+    /// The group's key, or `None` without `--group-by`.
+    pub key: Option<String>,
+    pub n: u64,
+    pub mean: f64,
+    /// Losses that were clipped at the declared maximum (regression losses only).
+    pub clipped: u64,
+    pub bounds: Vec<(Method, Bounds)>,
+}
+
+/// The whole result, groups in order of first appearance.
+#[derive(Clone, Debug)]
+pub struct Report {
+    pub confidence: Confidence,
+    pub loss: LossSpec,
+    pub groups: Vec<GroupReport>,
+    /// Time spent reading and decoding, and computing each method (summed over groups).
+    pub timings: Vec<(String, Duration)>,
+}
+
+/// Why the command failed. All of these are the user's input, so `main` exits with status 2.
+#[derive(Debug, thiserror::Error)]
+pub enum BoundError {
+    #[error("{0}")]
+    Input(#[from] DecodeError),
+    #[error("{file}: group {group}: {source}")]
+    Method { file: String, group: String, source: estimate::EstimateError },
+}
+
+/// The i-th wanted cell of a row, or a located "missing value" error.
+fn required<'a>(row: &Row<'a>, file: &str, columns: &[&str], i: usize) -> Result<&'a [u8], DecodeError> {
+    row.cell(i).ok_or_else(|| DecodeError::cell(file, row.line, columns[i], "missing value"))
+}
+
+struct Group {
+    key: Option<String>,
+    summary: LossSummary,
+    clipped: u64,
+}
+
+/// Runs the plan over `src`.
+pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
+    let keep_losses = plan.methods.is_empty() || plan.methods.iter().any(|m| m.needs_losses());
+    let loss_max = plan.loss.max();
+    let new_summary = || if keep_losses { LossSummary::keeping_losses(loss_max) } else { LossSummary::new(loss_max) };
+
+    let mut columns: Vec<&str> = match &plan.source {
+        LossSource::Column(c) => vec![c.as_str()],
+        LossSource::Compare { prediction, label } => vec![prediction.as_str(), label.as_str()],
+    };
+    if let Some(g) = &plan.group_by {
+        columns.push(g.as_str());
+    }
+    let file = plan.file_label.as_str();
+    let mut groups: Vec<Group> = Vec::new();
+    let mut index: HashMap<Vec<u8>, usize> = HashMap::new();
+    let mut last_line = 1u64;
+
+    let started = Instant::now();
+    for_each_row(src, plan.format, file, &columns, |row| {
+        let row = row?;
+        last_line = row.line;
+        let located = |i: usize, e: loss::CellError| DecodeError::cell(file, row.line, columns[i], e);
+        let (value, clipped) = match (&plan.source, plan.loss) {
+            (LossSource::Column(_), LossSpec::Column { max }) => {
+                let v = loss::parse_number(required(&row, file, &columns, 0)?).map_err(|e| located(0, e))?;
+                (loss::check_loss(v, max).map_err(|e| located(0, e))?, false)
+            }
+            (LossSource::Compare { .. }, LossSpec::ZeroOne) => {
+                (loss::zero_one(required(&row, file, &columns, 0)?, required(&row, file, &columns, 1)?), false)
+            }
+            (LossSource::Compare { .. }, kind) => {
+                let p = loss::parse_number(required(&row, file, &columns, 0)?).map_err(|e| located(0, e))?;
+                let y = loss::parse_number(required(&row, file, &columns, 1)?).map_err(|e| located(1, e))?;
+                let c = loss::regression(&kind, p, y);
+                (c.value, c.clipped)
+            }
+            (source, kind) => unreachable!("plan pairs {source:?} with {kind:?}; validation forbids it"),
+        };
+        let slot = match &plan.group_by {
+            None => {
+                if groups.is_empty() {
+                    groups.push(Group { key: None, summary: new_summary(), clipped: 0 });
+                }
+                0
+            }
+            Some(_) => {
+                let key = required(&row, file, &columns, columns.len() - 1)?;
+                match index.get(key) {
+                    Some(&i) => i,
+                    None => {
+                        let i = groups.len();
+                        index.insert(key.to_vec(), i);
+                        let name = String::from_utf8_lossy(key).into_owned();
+                        groups.push(Group { key: Some(name), summary: new_summary(), clipped: 0 });
+                        i
+                    }
+                }
+            }
+        };
+        let g = &mut groups[slot];
+        g.summary.push(value);
+        g.clipped += u64::from(clipped);
+        Ok(())
+    })?;
+    let mut timings = vec![("read".to_string(), started.elapsed())];
+
+    if groups.is_empty() {
+        return Err(DecodeError::row(file, last_line + 1, "no data rows").into());
+    }
+
+    let mut per_method: HashMap<Method, Duration> = HashMap::new();
+    let mut reports = Vec::with_capacity(groups.len());
+    for g in groups {
+        let methods: Vec<Method> = if plan.methods.is_empty() {
+            Method::ALL.into_iter().filter(|m| m.applies(&g.summary)).collect()
+        } else {
+            plan.methods.clone()
+        };
+        let mut bounds = Vec::with_capacity(methods.len());
+        for m in methods {
+            let t = Instant::now();
+            let b = estimate::bounds(m, &g.summary, plan.confidence).map_err(|source| BoundError::Method {
+                file: file.to_string(),
+                group: g.key.clone().unwrap_or_else(|| "(all rows)".to_string()),
+                source,
+            })?;
+            *per_method.entry(m).or_default() += t.elapsed();
+            bounds.push((m, b));
+        }
+        reports.push(GroupReport { key: g.key, n: g.summary.n(), mean: g.summary.mean(), clipped: g.clipped, bounds });
+    }
+    let mut methods: Vec<_> = per_method.into_iter().collect();
+    methods.sort();
+    timings.extend(methods.into_iter().map(|(m, d)| (m.name().to_string(), d)));
+    Ok(Report { confidence: plan.confidence, loss: plan.loss, groups: reports, timings })
+}
+
+/// The JSON document: `{"confidence": C, "groups": [{"group", "n", "mean", "bounds"}]}`.
+pub fn to_json(report: &Report) -> serde_json::Value {
+    use serde_json::{json, Map, Value};
+    let groups: Vec<Value> = report
+        .groups
+        .iter()
+        .map(|g| {
+            let mut bounds = Map::new();
+            for (m, b) in &g.bounds {
+                bounds.insert(m.name().to_string(), json!({"lower": b.lower, "upper": b.upper}));
+            }
+            json!({"group": g.key, "n": g.n, "mean": g.mean, "bounds": Value::Object(bounds)})
+        })
+        .collect();
+    json!({"confidence": report.confidence.level(), "groups": groups})
+}
+
+/// An aligned table for people, with the assumptions the numbers rest on.
+pub fn write_table<W: Write>(report: &Report, out: &mut W) -> std::io::Result<()> {
+    let c = report.confidence;
+    writeln!(
+        out,
+        "loss: {}   confidence: {} (each bound one-sided, error probability {:.3e})",
+        report.loss,
+        c.level(),
+        c.delta()
+    )?;
+    let grouped = report.groups.iter().any(|g| g.key.is_some());
+    let mut rows: Vec<[String; 6]> = vec![["group", "n", "mean", "method", "lower", "upper"].map(String::from)];
+    for g in &report.groups {
+        for (i, (m, b)) in g.bounds.iter().enumerate() {
+            let first = i == 0;
+            rows.push([
+                if first { g.key.clone().unwrap_or_default() } else { String::new() },
+                if first { g.n.to_string() } else { String::new() },
+                if first { format!("{:.6}", g.mean) } else { String::new() },
+                m.name().to_string(),
+                format!("{:.6}", b.lower),
+                format!("{:.6}", b.upper),
+            ]);
+        }
+    }
+    let skip = usize::from(!grouped);
+    let mut widths = [0usize; 6];
+    for r in &rows {
+        for (w, cell) in widths.iter_mut().zip(r) {
+            *w = (*w).max(cell.chars().count());
+        }
+    }
+    for r in &rows {
+        let mut line = String::new();
+        for (i, cell) in r.iter().enumerate().skip(skip) {
+            if i > skip {
+                line.push_str("  ");
+            }
+            if i <= 3 && i != 1 {
+                line.push_str(&format!("{:<w$}", cell, w = widths[i]));
+            } else {
+                line.push_str(&format!("{:>w$}", cell, w = widths[i]));
+            }
+        }
+        writeln!(out, "{}", line.trim_end())?;
+    }
+    for g in report.groups.iter().filter(|g| g.clipped > 0) {
+        writeln!(
+            out,
+            "note: {} loss(es){} were above the maximum {} and count as {} (the bound is on the clipped loss)",
+            g.clipped,
+            g.key.as_ref().map(|k| format!(" in group {k}")).unwrap_or_default(),
+            report.loss.max(),
+            report.loss.max()
+        )?;
+    }
+    writeln!(
+        out,
+        "assumes: losses are i.i.d. within each group, bounded by {}, and labels were not chosen by outcome",
+        report.loss.max()
+    )?;
+    Ok(())
+}

@@ -1,0 +1,4 @@
+//! One module per command-line mode. Each takes already-validated settings, does its work
+//! through the library's stages, and returns a typed error that `main` maps to an exit code.
+
+pub mod bound;

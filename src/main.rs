@@ -1,0 +1,192 @@
+//! The `riskbound` binary: parses the command line, runs one mode, maps errors to exit codes
+//! (0 success, 2 bad input or usage, 1 anything else).
+
+use std::io::{self, BufWriter, Write};
+use std::path::Path;
+use std::process::ExitCode;
+
+use anyhow::Context;
+use clap::{Args, Parser, Subcommand};
+
+use riskbound::cmd::bound::{self, BoundError, LossSource, Plan};
+use riskbound::estimate::{Confidence, Method};
+use riskbound::ingest::Format;
+use riskbound::loss::LossSpec;
+
+#[derive(Parser)]
+#[command(name = "riskbound", version, about = "Certified confidence bounds on a deployed model's true risk")]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Bound the true risk of the labelled predictions in one file (CSV or JSON Lines)
+    Bound(BoundArgs),
+}
+
+#[derive(Args)]
+struct BoundArgs {
+    /// Input file: CSV with a header row, or JSON Lines; `-` reads standard input
+    file: String,
+    /// Input format; by default taken from the extension (.csv, .jsonl, .ndjson)
+    #[arg(long, value_parser = ["csv", "jsonl"])]
+    format: Option<String>,
+    /// Column holding a precomputed loss in [0, --loss-max]
+    #[arg(long, value_name = "COL", requires = "loss_max", conflicts_with_all = ["prediction_column", "label_column", "loss"])]
+    loss_column: Option<String>,
+    /// The loss maximum B (required with --loss-column, --loss absolute and --loss squared)
+    #[arg(long, value_name = "B", value_parser = parse_loss_max, allow_hyphen_values = true)]
+    loss_max: Option<f64>,
+    /// Column holding the model's prediction
+    #[arg(long, value_name = "P", requires_all = ["label_column", "loss"])]
+    prediction_column: Option<String>,
+    /// Column holding the ground-truth label
+    #[arg(long, value_name = "L", requires = "prediction_column")]
+    label_column: Option<String>,
+    /// How to compare prediction and label
+    #[arg(long, value_name = "KIND", value_parser = ["zero-one", "absolute", "squared"], requires = "prediction_column")]
+    loss: Option<String>,
+    /// Report one set of bounds per value of this column
+    #[arg(long, value_name = "COL")]
+    group_by: Option<String>,
+    /// Confidence C of each one-sided bound, in (0, 1)
+    #[arg(long, value_name = "C", default_value = "0.95", value_parser = parse_confidence, allow_hyphen_values = true)]
+    confidence: Confidence,
+    /// Bound method (repeatable): hoeffding, empirical-bernstein, clopper-pearson, kl, betting.
+    /// Default: every method that applies to the data
+    #[arg(long = "method", value_name = "NAME", value_parser = parse_method)]
+    methods: Vec<Method>,
+    /// Print one JSON document instead of a table
+    #[arg(long)]
+    json: bool,
+    /// Print time spent per phase to standard error (used by the benchmark)
+    #[arg(long, hide = true)]
+    timings: bool,
+}
+
+fn parse_confidence(s: &str) -> Result<Confidence, String> {
+    let v: f64 = s.parse().map_err(|_| format!("{s:?} is not a number"))?;
+    Confidence::new(v).map_err(|e| e.to_string())
+}
+
+fn parse_loss_max(s: &str) -> Result<f64, String> {
+    let v: f64 = s.parse().map_err(|_| format!("{s:?} is not a number"))?;
+    if v > 0.0 && v.is_finite() {
+        Ok(v)
+    } else {
+        Err(format!("must be a positive finite number, got {s}"))
+    }
+}
+
+fn parse_method(s: &str) -> Result<Method, String> {
+    Method::parse(s).ok_or_else(|| {
+        let names: Vec<_> = Method::ALL.iter().map(|m| m.name()).collect();
+        format!("unknown method {s:?} (one of: {})", names.join(", "))
+    })
+}
+
+/// An error that is the user's to fix: exit status 2.
+#[derive(Debug)]
+struct UsageError(String);
+
+impl std::fmt::Display for UsageError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.0)
+    }
+}
+impl std::error::Error for UsageError {}
+
+fn plan_bound(a: &BoundArgs) -> Result<Plan, UsageError> {
+    let stdin = a.file == "-";
+    let format = match (&a.format, stdin) {
+        (Some(f), _) => Format::parse(f).expect("clap restricts the values"),
+        (None, true) => return Err(UsageError("reading standard input needs --format csv or --format jsonl".into())),
+        (None, false) => Format::from_path(Path::new(&a.file)).ok_or_else(|| {
+            UsageError(format!(
+                "{}: cannot tell the format from the extension; pass --format csv or --format jsonl",
+                a.file
+            ))
+        })?,
+    };
+    let (source, loss) = match (&a.loss_column, &a.prediction_column, &a.label_column, a.loss.as_deref()) {
+        (Some(col), None, None, None) => {
+            (LossSource::Column(col.clone()), LossSpec::Column { max: a.loss_max.expect("clap requires it") })
+        }
+        (None, Some(p), Some(l), Some(kind)) => {
+            let spec = match (kind, a.loss_max) {
+                ("zero-one", None | Some(1.0)) => LossSpec::ZeroOne,
+                ("zero-one", Some(b)) => {
+                    return Err(UsageError(format!("--loss zero-one has maximum 1; drop --loss-max {b}")));
+                }
+                ("absolute", Some(max)) => LossSpec::Absolute { max },
+                ("squared", Some(max)) => LossSpec::Squared { max },
+                (k, None) => {
+                    return Err(UsageError(format!(
+                        "--loss {k} needs --loss-max B: the bounds hold only for losses bounded by a declared B"
+                    )));
+                }
+                (k, Some(_)) => unreachable!("clap restricts --loss, got {k}"),
+            };
+            (LossSource::Compare { prediction: p.clone(), label: l.clone() }, spec)
+        }
+        _ => {
+            return Err(UsageError(
+                "give either --loss-column COL --loss-max B, or --prediction-column P --label-column L --loss KIND"
+                    .into(),
+            ))
+        }
+    };
+    let mut methods = a.methods.clone();
+    methods.dedup();
+    Ok(Plan {
+        file_label: if stdin { "<stdin>".into() } else { a.file.clone() },
+        format,
+        source,
+        loss,
+        group_by: a.group_by.clone(),
+        confidence: a.confidence,
+        methods,
+    })
+}
+
+fn run_bound(a: &BoundArgs) -> anyhow::Result<()> {
+    let plan = plan_bound(a)?;
+    let report = if a.file == "-" {
+        bound::run(&plan, io::stdin().lock())?
+    } else {
+        let f = std::fs::File::open(&a.file).map_err(|e| UsageError(format!("{}: cannot open: {e}", a.file)))?;
+        bound::run(&plan, f)?
+    };
+    if a.timings {
+        for (phase, d) in &report.timings {
+            eprintln!("timing {phase} {:.6}", d.as_secs_f64());
+        }
+    }
+    let stdout = io::stdout();
+    let mut out = BufWriter::new(stdout.lock());
+    if a.json {
+        serde_json::to_writer(&mut out, &bound::to_json(&report)).context("writing JSON")?;
+        writeln!(out)?;
+    } else {
+        bound::write_table(&report, &mut out)?;
+    }
+    out.flush()?;
+    Ok(())
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    let result = match &cli.command {
+        Command::Bound(a) => run_bound(a),
+    };
+    match result {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("riskbound: {e}");
+            let user_error = e.downcast_ref::<UsageError>().is_some() || e.downcast_ref::<BoundError>().is_some();
+            ExitCode::from(if user_error { 2 } else { 1 })
+        }
+    }
+}
