@@ -2,7 +2,7 @@
 //! (0 success, 2 bad input or usage, 1 anything else).
 
 use std::io::{self, BufWriter, Write};
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
 use anyhow::Context;
@@ -24,6 +24,25 @@ struct Cli {
 enum Command {
     /// Bound the true risk of the labelled predictions in one file (CSV or JSON Lines)
     Bound(BoundArgs),
+    /// Run the daemon: watch batch files, keep windows, serve bounds on /metrics
+    Run(RunArgs),
+    /// Validate a daemon config file and print the resolved settings (exit 0 or 2)
+    CheckConfig {
+        /// The YAML config file
+        file: PathBuf,
+    },
+    /// Run the daemon on an invented scenario (a parcel-delivery model) at accelerated speed
+    Demo(riskbound::cmd::demo::DemoArgs),
+}
+
+#[derive(Args)]
+struct RunArgs {
+    /// The YAML config file
+    #[arg(long, value_name = "FILE")]
+    config: PathBuf,
+    /// Log format
+    #[arg(long, value_name = "FORMAT", default_value = "human", value_parser = ["human", "json"])]
+    log_format: String,
 }
 
 #[derive(Args)]
@@ -176,16 +195,55 @@ fn run_bound(a: &BoundArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// Logs go to standard error, human-readable or one JSON object a line; RUST_LOG filters.
+fn init_logs(format: &str) {
+    let filter = tracing_subscriber::EnvFilter::try_from_default_env().unwrap_or_else(|_| "info".into());
+    let builder = tracing_subscriber::fmt().with_env_filter(filter).with_writer(io::stderr);
+    if format == "json" {
+        builder.json().init();
+    } else {
+        builder.init();
+    }
+}
+
+fn load_config(path: &Path) -> anyhow::Result<riskbound::config::Config> {
+    riskbound::config::load(path).map_err(|e| UsageError(e.to_string()).into())
+}
+
+fn run_daemon(a: &RunArgs) -> anyhow::Result<()> {
+    let config = load_config(&a.config)?;
+    init_logs(&a.log_format);
+    tracing::info!(
+        models = config.models.len(),
+        "riskbound {}: bounds assume i.i.d. samples within a window, bounded losses, and labels not selected by outcome",
+        env!("CARGO_PKG_VERSION")
+    );
+    let running = riskbound::app::start(config)?;
+    running.run_until_signal()
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
     let result = match &cli.command {
         Command::Bound(a) => run_bound(a),
+        Command::Run(a) => run_daemon(a),
+        Command::CheckConfig { file } => load_config(file).map(|c| print!("{}", c.describe())),
+        Command::Demo(a) => {
+            init_logs("human");
+            riskbound::cmd::demo::run(a)
+        }
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
-            eprintln!("riskbound: {e}");
-            let user_error = e.downcast_ref::<UsageError>().is_some() || e.downcast_ref::<BoundError>().is_some();
+            if e.downcast_ref::<UsageError>().is_some() {
+                eprintln!("{e}");
+            } else {
+                eprintln!("riskbound: {e:#}");
+            }
+            let user_error = e.downcast_ref::<UsageError>().is_some()
+                || e.downcast_ref::<BoundError>().is_some()
+                || e.chain().any(|c| c.to_string().starts_with("binding "));
             ExitCode::from(if user_error { 2 } else { 1 })
         }
     }

@@ -2,3 +2,4 @@
 //! through the library's stages, and returns a typed error that `main` maps to an exit code.
 
 pub mod bound;
+pub mod demo;

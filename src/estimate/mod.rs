@@ -13,6 +13,7 @@ pub mod betting;
 pub mod binomial;
 pub mod hoeffding;
 pub mod kl;
+pub mod sla;
 pub mod special;
 mod summary;
 

@@ -1,0 +1,287 @@
+//! The daemon's wiring, and the only place that knows it: a pipeline thread that owns the
+//! state database (ingest → window → estimate, one file per transaction), an HTTP server on a
+//! tokio runtime that renders the latest snapshot, and one shutdown path that stops both.
+//!
+//! The pipeline wakes on file events, on the periodic rescan, and on shutdown. After each round
+//! that took a file it recomputes every window and publishes a new snapshot; scrapes never wait
+//! for it. A stop request is honoured between files, so a file is always all-in or all-out.
+
+use std::collections::HashMap;
+use std::path::PathBuf;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::mpsc::{self, Receiver, RecvTimeoutError, Sender};
+use std::sync::{Arc, RwLock};
+use std::time::{Duration, Instant, SystemTime, UNIX_EPOCH};
+
+use anyhow::Context;
+use sha2::{Digest, Sha256};
+
+use crate::config::Config;
+use crate::export::registry::{self, SharedSnapshot};
+use crate::export::server::{self, Shared};
+use crate::ingest::records::{decode_records, Columns};
+use crate::ingest::watch::{self, Candidate};
+use crate::ingest::Format;
+use crate::window::{self, Batch, Kind, Snapshot, Store};
+
+/// A running daemon.
+pub struct Running {
+    /// The address the HTTP server listens on (useful with port 0).
+    pub addr: std::net::SocketAddr,
+    /// The latest published snapshot.
+    pub snapshot: SharedSnapshot,
+    stop: Arc<AtomicBool>,
+    wake: Sender<()>,
+    server_stop: Arc<tokio::sync::Notify>,
+    pipeline: Option<std::thread::JoinHandle<anyhow::Result<()>>>,
+    runtime: tokio::runtime::Runtime,
+    server: Option<tokio::task::JoinHandle<std::io::Result<()>>>,
+    /// Rounds completed by the pipeline (a round lists every directory once).
+    pub rounds: Arc<std::sync::atomic::AtomicU64>,
+}
+
+fn now_ms() -> i64 {
+    SystemTime::now().duration_since(UNIX_EPOCH).map_or(0, |d| d.as_millis() as i64)
+}
+
+fn hash_hex(bytes: &[u8]) -> String {
+    let d = Sha256::digest(bytes);
+    d.iter().map(|b| format!("{b:02x}")).collect()
+}
+
+struct Pipeline {
+    config: Config,
+    store: Store,
+    snapshot: SharedSnapshot,
+    /// Files already settled this run, by path, with the size and mtime they had: unchanged
+    /// files are not read again on every rescan.
+    settled: HashMap<PathBuf, (u64, Option<SystemTime>)>,
+}
+
+impl Pipeline {
+    fn publish(&self) -> anyhow::Result<()> {
+        let mut models = Vec::with_capacity(self.config.models.len());
+        for m in &self.config.models {
+            models.push(window::model_snapshot(&self.store, m)?);
+        }
+        *self.snapshot.write().expect("snapshot lock poisoned") = Arc::new(Snapshot { models });
+        Ok(())
+    }
+
+    /// Takes one candidate file if it is new. Returns true when it changed the state.
+    fn take(&mut self, c: &Candidate) -> anyhow::Result<bool> {
+        if self.settled.get(&c.path) == Some(&(c.len, c.modified)) {
+            return Ok(false);
+        }
+        let model = &self.config.models[c.model];
+        let bytes = match std::fs::read(&c.path) {
+            Ok(b) => b,
+            Err(e) => {
+                // Gone between listing and reading (renamed again, deleted): the next listing
+                // finds it under its new name, if any.
+                tracing::warn!(file = %c.path.display(), error = %e, "cannot read batch file; will retry");
+                return Ok(false);
+            }
+        };
+        let hash = hash_hex(&bytes);
+        if self.store.has_file(&model.name, c.kind, &hash)? {
+            tracing::debug!(file = %c.path.display(), "content already taken");
+            self.settled.insert(c.path.clone(), (c.len, c.modified));
+            return Ok(false);
+        }
+        let src = if c.kind == Kind::Prediction { &model.predictions } else { &model.labels };
+        let format = src.format.or_else(|| Format::from_path(&c.path)).unwrap_or(Format::Csv);
+        let label = c.path.display().to_string();
+        let columns = Columns { id: &src.id_column, time: &src.time_column, value: &src.value_column };
+        let mut records = Vec::new();
+        let mut rejects = Vec::new();
+        let started = Instant::now();
+        if let Err(e) = decode_records(
+            &bytes,
+            format,
+            &label,
+            &columns,
+            self.config.max_row_bytes,
+            |r| records.push(r),
+            |r| rejects.push(r),
+        ) {
+            // The whole file is unusable (no header, a configured column missing): it is
+            // recorded as taken with one malformed row, so it is not retried forever.
+            rejects.push(crate::ingest::records::Reject {
+                line: e.line.unwrap_or(1),
+                reason: crate::ingest::records::RejectReason::MalformedRow,
+                message: e.to_string(),
+            });
+        }
+        let batch = Batch { kind: c.kind, name: &c.name, hash: &hash, records: &records, rejects: &rejects };
+        let out = self.store.ingest_file(model, &batch, now_ms())?;
+        self.settled.insert(c.path.clone(), (c.len, c.modified));
+        if out.already_taken {
+            return Ok(false);
+        }
+        let bad: u64 = out.rejected.values().sum();
+        tracing::info!(
+            model = %model.name,
+            kind = c.kind.as_str(),
+            file = %c.path.display(),
+            rows = out.rows_ok,
+            rejected = bad,
+            joined = out.joined,
+            ms = started.elapsed().as_millis() as u64,
+            "batch file taken"
+        );
+        if let Some(first) = &out.first_reject {
+            // One line per file, not per row: a file of a million bad rows is one log line.
+            tracing::warn!(reason = first.reason.as_str(), rejected = bad, "first rejected row: {}", first.message);
+        }
+        Ok(true)
+    }
+
+    fn round(&mut self, stop: &AtomicBool) -> anyhow::Result<bool> {
+        let mut changed = false;
+        for c in watch::scan(&self.config.models) {
+            if stop.load(Ordering::SeqCst) {
+                break;
+            }
+            changed |= self.take(&c)?;
+        }
+        Ok(changed)
+    }
+
+    fn run(
+        mut self,
+        stop: Arc<AtomicBool>,
+        wake: Receiver<()>,
+        rounds: Arc<std::sync::atomic::AtomicU64>,
+    ) -> anyhow::Result<()> {
+        let rescan = self.config.rescan_interval;
+        loop {
+            if stop.load(Ordering::SeqCst) {
+                return Ok(());
+            }
+            if self.round(&stop)? {
+                self.publish()?;
+            }
+            rounds.fetch_add(1, Ordering::SeqCst);
+            match wake.recv_timeout(rescan) {
+                Ok(()) => {
+                    // Let a burst of events (a writer dropping many files) settle into one round.
+                    std::thread::sleep(Duration::from_millis(20));
+                    while wake.try_recv().is_ok() {}
+                }
+                Err(RecvTimeoutError::Timeout) => {}
+                Err(RecvTimeoutError::Disconnected) => return Ok(()),
+            }
+        }
+    }
+}
+
+/// Starts the daemon: opens the state, binds the listener, resumes, then serves and ingests.
+pub fn start(config: Config) -> anyhow::Result<Running> {
+    std::fs::create_dir_all(&config.state_dir)
+        .with_context(|| format!("creating state_dir {}", config.state_dir.display()))?;
+    let runtime = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(1)
+        .enable_all()
+        .build()
+        .context("starting the async runtime")?;
+    let listener = runtime
+        .block_on(tokio::net::TcpListener::bind(config.listen))
+        .with_context(|| format!("binding {}", config.listen))?;
+    let addr = listener.local_addr()?;
+
+    let snapshot: SharedSnapshot = Arc::new(RwLock::new(Arc::new(Snapshot::default())));
+    let shared = Arc::new(Shared { registry: registry::registry(snapshot.clone()), ready: AtomicBool::new(false) });
+    let server_stop = Arc::new(tokio::sync::Notify::new());
+    let stop_signal = server_stop.clone();
+    let app = server::router(shared.clone());
+    let server = runtime.spawn(async move {
+        axum::serve(listener, app).with_graceful_shutdown(async move { stop_signal.notified().await }).await
+    });
+    tracing::info!(%addr, "serving /metrics, /healthz, /readyz");
+
+    let store = Store::open(&config.state_dir)?;
+    let pipeline = Pipeline { config: config.clone(), store, snapshot: snapshot.clone(), settled: HashMap::new() };
+    // Resume: the snapshot of the committed state is published before anything new is read,
+    // and only then is the daemon ready.
+    pipeline.publish()?;
+    shared.ready.store(true, Ordering::SeqCst);
+    tracing::info!(state = %config.state_dir.display(), "state resumed; ready");
+
+    let (wake_tx, wake_rx) = mpsc::channel();
+    let stop = Arc::new(AtomicBool::new(false));
+    let rounds = Arc::new(std::sync::atomic::AtomicU64::new(0));
+    let watcher = watch::watch(&config.models, wake_tx.clone());
+    if let Err(e) = &watcher {
+        tracing::warn!(error = %e, "file events unavailable; relying on the periodic rescan");
+    }
+    let (stop2, rounds2) = (stop.clone(), rounds.clone());
+    let handle = std::thread::Builder::new().name("pipeline".into()).spawn(move || {
+        let _watcher = watcher; // dropped, and so stopped, when the pipeline ends
+        let r = pipeline.run(stop2, wake_rx, rounds2);
+        if let Err(e) = &r {
+            tracing::error!(error = %format!("{e:#}"), "pipeline stopped");
+        }
+        r
+    })?;
+    Ok(Running {
+        addr,
+        snapshot,
+        stop,
+        wake: wake_tx,
+        server_stop,
+        pipeline: Some(handle),
+        runtime,
+        server: Some(server),
+        rounds,
+    })
+}
+
+impl Running {
+    /// Waits for SIGTERM or SIGINT, then shuts down.
+    pub fn run_until_signal(self) -> anyhow::Result<()> {
+        let which = self.runtime.block_on(async {
+            let mut term = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate())?;
+            tokio::select! {
+                _ = term.recv() => Ok::<_, std::io::Error>("SIGTERM"),
+                r = tokio::signal::ctrl_c() => r.map(|_| "SIGINT"),
+            }
+        })?;
+        tracing::info!(signal = which, "stopping: finishing the current file, then closing");
+        self.shutdown()
+    }
+
+    /// The one shutdown path: stop ingest between files, stop serving, close the database.
+    pub fn shutdown(mut self) -> anyhow::Result<()> {
+        self.stop.store(true, Ordering::SeqCst);
+        let _ = self.wake.send(());
+        let pipeline = self.pipeline.take().expect("shutdown runs once").join();
+        self.server_stop.notify_waiters();
+        self.server_stop.notify_one();
+        if let Some(s) = self.server.take() {
+            let _ = self.runtime.block_on(async { tokio::time::timeout(Duration::from_secs(5), s).await });
+        }
+        match pipeline {
+            Ok(r) => r?,
+            Err(_) => anyhow::bail!("the pipeline thread panicked"),
+        }
+        tracing::info!("stopped cleanly");
+        Ok(())
+    }
+
+    /// Blocks until the pipeline has completed `n` more rounds (tests and the demo use this
+    /// to know that files they dropped have been looked at).
+    pub fn wait_rounds(&self, n: u64, timeout: Duration) -> bool {
+        let target = self.rounds.load(Ordering::SeqCst) + n;
+        let deadline = Instant::now() + timeout;
+        let _ = self.wake.send(());
+        while self.rounds.load(Ordering::SeqCst) < target {
+            if Instant::now() > deadline {
+                return false;
+            }
+            std::thread::sleep(Duration::from_millis(5));
+            let _ = self.wake.send(());
+        }
+        true
+    }
+}

@@ -1,0 +1,242 @@
+//! `riskbound demo`: the daemon on a scenario of our own invention, replayed fast.
+//!
+//! A fictional parcel-delivery company runs a classifier that predicts whether a parcel will
+//! arrive late. Predictions are written in hourly batches; the true outcome of each parcel is
+//! known 1 to 3 days later and arrives in hourly label batches; a few labels never arrive. For
+//! the first twelve days every region's error rate is about 6%; then the north-east region's
+//! error jumps to 35%, which lifts the overall error past the 10% SLA. The demo writes the
+//! batches into a folder as a serving stack would (write under a temporary name, then rename),
+//! runs the real daemon on it, and prints the windows, their bounds and SLA states as they move.
+
+use std::fmt::Write as _;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+use anyhow::Context;
+
+use crate::app;
+use crate::estimate::Method;
+use crate::window::Snapshot;
+
+/// Options of `riskbound demo`.
+#[derive(clap::Args, Debug)]
+pub struct DemoArgs {
+    /// Stop after the replay instead of serving /metrics until Ctrl-C
+    #[arg(long)]
+    pub exit_when_done: bool,
+    /// Address for /metrics
+    #[arg(long, default_value = "127.0.0.1:9417")]
+    pub listen: String,
+    /// Folder for the scenario's batch files, config and state (kept); default: a temporary
+    /// folder, removed at the end
+    #[arg(long, value_name = "DIR")]
+    pub dir: Option<PathBuf>,
+    /// Simulated days to replay
+    #[arg(long, default_value_t = 21)]
+    pub days: u32,
+    /// Real milliseconds per simulated hour
+    #[arg(long, default_value_t = 15)]
+    pub ms_per_hour: u64,
+}
+
+/// A small deterministic generator (SplitMix64): the scenario is the same on every run.
+struct Rng(u64);
+
+impl Rng {
+    fn next(&mut self) -> u64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^ (z >> 31)
+    }
+    fn uniform(&mut self) -> f64 {
+        (self.next() >> 11) as f64 / (1u64 << 53) as f64
+    }
+    fn below(&mut self, n: u64) -> u64 {
+        self.next() % n
+    }
+}
+
+const REGIONS: [&str; 4] = ["north", "south", "west", "north-east"];
+const CARRIERS: [&str; 3] = ["swiftline", "parcelpost", "roadrunner"];
+/// 2026-11-02T00:00:00Z, the scenario's first hour.
+const T0: i64 = 1_793_577_600;
+const HOUR: i64 = 3600;
+
+struct Pending {
+    arrives: i64,
+    id: String,
+    actual: &'static str,
+}
+
+/// The demo's config: two windows and a 10% SLA.
+fn config_text(listen: &str) -> String {
+    format!(
+        "# riskbound demo: a fictional parcel-delivery model (see `riskbound demo --help`)
+listen: \"{listen}\"
+state_dir: state
+rescan_interval: 2s
+models:
+  - name: parcel-late
+    predictions:
+      {{ dir: batches, pattern: \"pred-*.csv\", columns: {{ id: request_id, time: ts, prediction: predicted }} }}
+    labels:
+      {{ dir: batches, pattern: \"label-*.csv\", columns: {{ id: request_id, time: observed, label: actual }} }}
+    loss: zero-one
+    confidence: 0.95
+    label_wait: 4d
+    windows:
+      - {{ name: recent, last: 500 }}
+      - {{ name: day, span: 24h }}
+    sla: {{ max_risk: 0.10 }}
+"
+    )
+}
+
+fn publish(dir: &Path, name: &str, body: &str) -> anyhow::Result<()> {
+    let tmp = dir.join(format!(".{name}.tmp"));
+    std::fs::write(&tmp, body)?;
+    std::fs::rename(&tmp, dir.join(name))?;
+    Ok(())
+}
+
+fn stamp(t: i64) -> String {
+    let dt = time::OffsetDateTime::from_unix_timestamp(t).expect("scenario times are valid");
+    format!("{:04}{:02}{:02}{:02}", dt.year(), dt.month() as u8, dt.day(), dt.hour())
+}
+
+fn rfc3339(t: i64) -> String {
+    time::OffsetDateTime::from_unix_timestamp(t)
+        .expect("scenario times are valid")
+        .format(&time::format_description::well_known::Rfc3339)
+        .expect("RFC 3339 formatting of a valid time")
+}
+
+/// The table of windows the demo prints.
+pub fn table(snap: &Snapshot) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "{:<12} {:<7} {:>6} {:>9} {:>10} {:>10}  sla state",
+        "model", "window", "n", "observed", "cp lower", "cp upper"
+    );
+    for m in &snap.models {
+        for w in &m.windows {
+            let cp = w.bounds.iter().find(|(k, _)| *k == Method::ClopperPearson).map(|(_, b)| *b);
+            let (lo, up) =
+                cp.map_or(("-".into(), "-".into()), |b| (format!("{:.4}", b.lower), format!("{:.4}", b.upper)));
+            let state = w.state.map_or("-".to_string(), |(st, why)| format!("{} ({})", st.as_str(), why.describe()));
+            let _ =
+                writeln!(s, "{:<12} {:<7} {:>6} {:>9.4} {:>10} {:>10}  {}", m.name, w.name, w.n, w.mean, lo, up, state);
+        }
+        let _ = writeln!(
+            s,
+            "{:<12} awaiting label: {}, labelled: {}, expired unlabelled: {}, label coverage: {}",
+            "",
+            m.awaiting,
+            m.counters.joined,
+            m.counters.expired,
+            m.label_coverage.map_or("-".into(), |c| format!("{:.3}", c))
+        );
+    }
+    s
+}
+
+/// Runs the demo.
+pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
+    let (root, keep) = match &a.dir {
+        Some(d) => (d.clone(), true),
+        None => (std::env::temp_dir().join(format!("riskbound-demo-{}", std::process::id())), false),
+    };
+    let batches = root.join("batches");
+    std::fs::create_dir_all(&batches).with_context(|| format!("creating {}", batches.display()))?;
+    let config_path = root.join("riskbound.yaml");
+    std::fs::write(&config_path, config_text(&a.listen))?;
+    let config = crate::config::load(&config_path).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let running = app::start(config)?;
+    let url = format!("http://{}/metrics", running.addr);
+    println!("riskbound demo: a fictional parcel-delivery model, replayed at {} ms per simulated hour", a.ms_per_hour);
+    println!("batch files and config: {}", root.display());
+    println!("scrape: {url}");
+    println!("bounds assume i.i.d. samples within a window, a bounded loss, and labels not selected by outcome\n");
+
+    let mut rng = Rng(20_261_201);
+    let mut pending: Vec<Pending> = Vec::new();
+    let hours = i64::from(a.days) * 24;
+    let mut next_id = 0u64;
+    for h in 0..hours {
+        let t = T0 + h * HOUR;
+        let day = h / 24;
+        // Predictions of this hour.
+        let mut body = String::from("request_id,ts,region,carrier,weight_kg,predicted\n");
+        for _ in 0..(30 + rng.below(20)) {
+            let id = format!("p{next_id:07}");
+            next_id += 1;
+            let region = REGIONS[rng.below(4) as usize];
+            let err = if region == "north-east" && day >= 12 { 0.35 } else { 0.06 };
+            let actual = if rng.uniform() < 0.3 { "late" } else { "on-time" };
+            let wrong = rng.uniform() < err;
+            let predicted = if wrong {
+                if actual == "late" {
+                    "on-time"
+                } else {
+                    "late"
+                }
+            } else {
+                actual
+            };
+            let ts = t + rng.below(HOUR as u64) as i64;
+            let _ = writeln!(
+                body,
+                "{id},{},{region},{},{:.1},{predicted}",
+                rfc3339(ts),
+                CARRIERS[rng.below(3) as usize],
+                0.2 + 30.0 * rng.uniform()
+            );
+            if rng.uniform() < 0.98 {
+                let delay = 86_400 + rng.below(2 * 86_400) as i64;
+                pending.push(Pending { arrives: ts + delay, id, actual });
+            }
+        }
+        publish(&batches, &format!("pred-{}.csv", stamp(t)), &body)?;
+        // Labels that became known during this hour.
+        let (due, rest): (Vec<Pending>, Vec<Pending>) = pending.drain(..).partition(|p| p.arrives < t + HOUR);
+        pending = rest;
+        if !due.is_empty() {
+            let mut body = String::from("request_id,observed,actual\n");
+            for p in &due {
+                let _ = writeln!(body, "{},{},{}", p.id, p.arrives, p.actual);
+            }
+            publish(&batches, &format!("label-{}.csv", stamp(t)), &body)?;
+        }
+        std::thread::sleep(Duration::from_millis(a.ms_per_hour));
+        if h % 24 == 23 {
+            running.wait_rounds(1, Duration::from_secs(30));
+            let snap = running.snapshot.read().expect("snapshot lock").clone();
+            println!(
+                "simulated day {:>2} of {} ({}){}",
+                day + 1,
+                a.days,
+                &rfc3339(t)[..10],
+                if day >= 12 { "  north-east error now 35%" } else { "" }
+            );
+            print!("{}", table(&snap));
+            println!();
+            std::io::stdout().flush()?;
+        }
+    }
+    running.wait_rounds(2, Duration::from_secs(30));
+    println!("replay done. Scrape {url}");
+    let result = if a.exit_when_done {
+        running.shutdown()
+    } else {
+        println!("serving until Ctrl-C");
+        running.run_until_signal()
+    };
+    if !keep {
+        let _ = std::fs::remove_dir_all(&root);
+    }
+    result
+}

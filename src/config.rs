@@ -1,0 +1,622 @@
+//! The daemon's configuration: YAML parsed into raw serde types that mirror the file (unknown
+//! keys are errors), then validated into [`Config`], the only type the rest of the daemon sees.
+//! Validation collects every problem before reporting, each as `FILE:LINE:COL: key: reason`.
+//! Relative paths are resolved against the directory of the config file, so a config means the
+//! same thing whichever directory the daemon is started from.
+
+use std::collections::HashSet;
+use std::fmt;
+use std::net::SocketAddr;
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+use serde::Deserialize;
+use serde_saphyr::Spanned;
+
+use crate::estimate::{Confidence, Method};
+use crate::ingest::Format;
+use crate::loss::LossSpec;
+
+/// Default listen address: loopback, so nothing is exposed unless asked for.
+pub const DEFAULT_LISTEN: &str = "127.0.0.1:9417";
+
+// === raw types: the YAML as written ===
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawConfig {
+    listen: Option<Spanned<String>>,
+    state_dir: Option<Spanned<String>>,
+    rescan_interval: Option<Spanned<String>>,
+    max_row_bytes: Option<Spanned<u64>>,
+    models: Spanned<Vec<RawModel>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawModel {
+    name: Spanned<String>,
+    predictions: Spanned<RawSource>,
+    labels: Spanned<RawSource>,
+    loss: Option<Spanned<String>>,
+    loss_max: Option<Spanned<f64>>,
+    confidence: Option<Spanned<f64>>,
+    label_wait: Option<Spanned<String>>,
+    windows: Spanned<Vec<RawWindow>>,
+    sla: Option<Spanned<RawSla>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSource {
+    dir: Spanned<String>,
+    pattern: Spanned<String>,
+    format: Option<Spanned<String>>,
+    columns: Spanned<RawColumns>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawColumns {
+    id: Option<Spanned<String>>,
+    time: Option<Spanned<String>>,
+    prediction: Option<Spanned<String>>,
+    label: Option<Spanned<String>>,
+    loss: Option<Spanned<String>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawWindow {
+    name: Spanned<String>,
+    last: Option<Spanned<i64>>,
+    span: Option<Spanned<String>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSla {
+    max_risk: Spanned<f64>,
+    method: Option<Spanned<String>>,
+    min_samples: Option<Spanned<i64>>,
+    min_label_coverage: Option<Spanned<f64>>,
+}
+
+// === validated types ===
+
+/// The validated configuration.
+#[derive(Clone, Debug)]
+pub struct Config {
+    /// Where the config was read from (for messages).
+    pub file: PathBuf,
+    pub listen: SocketAddr,
+    pub state_dir: PathBuf,
+    /// How often every input directory is listed even without a file event.
+    pub rescan_interval: Duration,
+    /// Longest accepted row; longer rows are rejected (bounds memory on hostile input).
+    pub max_row_bytes: u64,
+    pub models: Vec<ModelConfig>,
+}
+
+/// One monitored model.
+#[derive(Clone, Debug)]
+pub struct ModelConfig {
+    pub name: String,
+    pub predictions: SourceConfig,
+    pub labels: SourceConfig,
+    pub loss: LossSpec,
+    pub confidence: Confidence,
+    /// How long (event time, ms) a prediction waits for its label, and a label for its prediction.
+    pub label_wait_ms: i64,
+    pub windows: Vec<WindowConfig>,
+    pub sla: Option<SlaConfig>,
+}
+
+/// Which rows of a directory belong to a model, and which columns hold what.
+#[derive(Clone, Debug)]
+pub struct SourceConfig {
+    pub dir: PathBuf,
+    pub pattern: glob::Pattern,
+    /// Fixed format, or `None` to go by each file's extension.
+    pub format: Option<Format>,
+    pub id_column: String,
+    pub time_column: String,
+    /// The prediction column (predictions), or the label or loss column (labels).
+    pub value_column: String,
+}
+
+/// A rolling window of labelled samples, by prediction (event) time.
+#[derive(Clone, Debug, PartialEq)]
+pub struct WindowConfig {
+    pub name: String,
+    pub kind: WindowKind,
+}
+
+/// How a window is bounded.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum WindowKind {
+    /// The newest N labelled samples.
+    Last(u64),
+    /// Samples whose prediction time is within this many ms of the newest one.
+    SpanMs(i64),
+}
+
+/// The service-level agreement on a model's risk.
+#[derive(Clone, Debug)]
+pub struct SlaConfig {
+    pub max_risk: f64,
+    /// The method whose bounds decide the state.
+    pub method: Method,
+    /// Below this many samples a window is `inconclusive`.
+    pub min_samples: u64,
+    /// Below this fraction of predictions that got their label (of those whose wait is over),
+    /// every window of the model is `inconclusive`: missing labels may be missing by outcome.
+    pub min_label_coverage: f64,
+}
+
+/// One located configuration problem.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ConfigIssue {
+    pub line: u64,
+    pub column: u64,
+    pub key: String,
+    pub reason: String,
+}
+
+/// Every problem found in a config file.
+#[derive(Debug)]
+pub struct ConfigError {
+    pub file: String,
+    pub issues: Vec<ConfigIssue>,
+}
+
+impl fmt::Display for ConfigError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        for (i, p) in self.issues.iter().enumerate() {
+            if i > 0 {
+                writeln!(f)?;
+            }
+            write!(f, "{}:{}:{}: {}: {}", self.file, p.line, p.column, p.key, p.reason)?;
+        }
+        Ok(())
+    }
+}
+
+impl std::error::Error for ConfigError {}
+
+/// Parses a duration such as `30s`, `15m`, `24h`, `7d` or `500ms`.
+pub fn parse_duration(s: &str) -> Result<Duration, String> {
+    let s = s.trim();
+    let split = s
+        .find(|c: char| !c.is_ascii_digit() && c != '.')
+        .ok_or_else(|| format!("{s:?} has no unit (ms, s, m, h, d)"))?;
+    let (num, unit) = s.split_at(split);
+    let v: f64 = num.parse().map_err(|_| format!("{s:?} is not a duration"))?;
+    let secs = match unit {
+        "ms" => v / 1000.0,
+        "s" => v,
+        "m" => v * 60.0,
+        "h" => v * 3600.0,
+        "d" => v * 86400.0,
+        _ => return Err(format!("{s:?}: unknown unit {unit:?} (ms, s, m, h, d)")),
+    };
+    if !secs.is_finite() || secs <= 0.0 {
+        return Err(format!("{s:?} must be positive"));
+    }
+    Ok(Duration::from_secs_f64(secs))
+}
+
+fn valid_name(s: &str) -> bool {
+    !s.is_empty() && s.bytes().all(|b| b.is_ascii_lowercase() || b.is_ascii_digit() || b == b'-' || b == b'_')
+}
+
+/// Collects issues while walking the raw config.
+struct Checker {
+    base: PathBuf,
+    issues: Vec<ConfigIssue>,
+}
+
+impl Checker {
+    fn push<T>(&mut self, at: &Spanned<T>, key: &str, reason: impl fmt::Display) {
+        self.issues.push(ConfigIssue {
+            line: at.referenced.line(),
+            column: at.referenced.column(),
+            key: key.to_string(),
+            reason: reason.to_string(),
+        });
+    }
+
+    fn path(&self, s: &str) -> PathBuf {
+        let p = Path::new(s);
+        if p.is_absolute() {
+            p.to_path_buf()
+        } else {
+            self.base.join(p)
+        }
+    }
+
+    fn source(
+        &mut self,
+        raw: &Spanned<RawSource>,
+        key: &str,
+        value_key: &str,
+        value_col: Option<&Spanned<String>>,
+    ) -> Option<SourceConfig> {
+        let r = &raw.value;
+        let mut ok = true;
+        let dir = self.path(&r.dir.value);
+        match std::fs::read_dir(&dir) {
+            Ok(_) => {}
+            Err(e) => {
+                self.push(&r.dir, &format!("{key}.dir"), format!("cannot read directory {}: {e}", dir.display()));
+                ok = false;
+            }
+        }
+        let pattern = if r.pattern.value.contains('/') {
+            self.push(
+                &r.pattern,
+                &format!("{key}.pattern"),
+                "a file-name pattern, not a path: put the directory in dir",
+            );
+            None
+        } else {
+            match glob::Pattern::new(&r.pattern.value) {
+                Ok(p) => Some(p),
+                Err(e) => {
+                    self.push(&r.pattern, &format!("{key}.pattern"), format!("invalid glob pattern: {e}"));
+                    None
+                }
+            }
+        };
+        let format = match &r.format {
+            None => None,
+            Some(f) => match Format::parse(&f.value) {
+                Some(x) => Some(x),
+                None => {
+                    self.push(f, &format!("{key}.format"), format!("{:?} is not csv or jsonl", f.value));
+                    ok = false;
+                    None
+                }
+            },
+        };
+        let column = |c: Option<&Spanned<String>>, name: &str, this: &mut Checker| -> Option<String> {
+            match c {
+                Some(v) if !v.value.trim().is_empty() => Some(v.value.clone()),
+                Some(v) => {
+                    this.push(v, &format!("{key}.columns.{name}"), "must not be empty");
+                    None
+                }
+                None => {
+                    this.push(&r.columns, &format!("{key}.columns.{name}"), "missing: name the column that holds it");
+                    None
+                }
+            }
+        };
+        let id = column(r.columns.value.id.as_ref(), "id", self);
+        let time = column(r.columns.value.time.as_ref(), "time", self);
+        let value = column(value_col, value_key, self);
+        match (ok, pattern, id, time, value) {
+            (true, Some(pattern), Some(id_column), Some(time_column), Some(value_column)) => {
+                Some(SourceConfig { dir, pattern, format, id_column, time_column, value_column })
+            }
+            _ => None,
+        }
+    }
+
+    fn duration_ms(&mut self, raw: &Spanned<String>, key: &str) -> Option<i64> {
+        match parse_duration(&raw.value) {
+            Ok(d) => Some(d.as_millis().min(i64::MAX as u128) as i64),
+            Err(e) => {
+                self.push(raw, key, e);
+                None
+            }
+        }
+    }
+
+    fn model(&mut self, raw: &RawModel, i: usize) -> Option<ModelConfig> {
+        let k = format!("models[{i}]");
+        let start = self.issues.len();
+        if !valid_name(&raw.name.value) {
+            self.push(&raw.name, &format!("{k}.name"), format!("{:?} must match [a-z0-9_-]+", raw.name.value));
+        }
+        let loss_name = raw.loss.as_ref().map_or("zero-one", |l| l.value.as_str());
+        let loss_max = raw.loss_max.as_ref().map(|m| m.value);
+        if let Some(m) = &raw.loss_max {
+            if !(m.value > 0.0 && m.value.is_finite()) {
+                self.push(m, &format!("{k}.loss_max"), format!("must be a positive finite number, got {}", m.value));
+            }
+        }
+        let need_max = |this: &mut Checker| -> f64 {
+            match loss_max {
+                Some(v) => v,
+                None => {
+                    let at = raw.loss.as_ref().expect("only named losses need a maximum");
+                    this.push(at, &format!("{k}.loss_max"), format!("loss {loss_name} needs loss_max: the bounds hold only for losses bounded by a declared maximum"));
+                    1.0
+                }
+            }
+        };
+        let loss = match loss_name {
+            "zero-one" => {
+                if let (Some(m), Some(v)) = (&raw.loss_max, loss_max) {
+                    if v != 1.0 {
+                        self.push(m, &format!("{k}.loss_max"), "zero-one loss has maximum 1; drop loss_max");
+                    }
+                }
+                LossSpec::ZeroOne
+            }
+            "absolute" => LossSpec::Absolute { max: need_max(self) },
+            "squared" => LossSpec::Squared { max: need_max(self) },
+            "column" => LossSpec::Column { max: need_max(self) },
+            other => {
+                let at = raw.loss.as_ref().expect("a non-default name was written");
+                self.push(
+                    at,
+                    &format!("{k}.loss"),
+                    format!("{other:?} is not one of zero-one, absolute, squared, column"),
+                );
+                LossSpec::ZeroOne
+            }
+        };
+        let confidence = match &raw.confidence {
+            None => Confidence::new(0.95).expect("valid default"),
+            Some(c) => Confidence::new(c.value).unwrap_or_else(|e| {
+                self.push(c, &format!("{k}.confidence"), e);
+                Confidence::new(0.95).expect("valid default")
+            }),
+        };
+        let label_wait_ms = match &raw.label_wait {
+            None => 7 * 86_400_000,
+            Some(w) => self.duration_ms(w, &format!("{k}.label_wait")).unwrap_or(1),
+        };
+        let predictions = self.source(
+            &raw.predictions,
+            &format!("{k}.predictions"),
+            "prediction",
+            raw.predictions.value.columns.value.prediction.as_ref(),
+        );
+        let (label_key, label_col) = if loss_name == "column" {
+            ("loss", raw.labels.value.columns.value.loss.as_ref())
+        } else {
+            ("label", raw.labels.value.columns.value.label.as_ref())
+        };
+        let labels = self.source(&raw.labels, &format!("{k}.labels"), label_key, label_col);
+
+        let mut windows = Vec::new();
+        let mut names = HashSet::new();
+        if raw.windows.value.is_empty() {
+            self.push(&raw.windows, &format!("{k}.windows"), "at least one window is needed");
+        }
+        for (j, w) in raw.windows.value.iter().enumerate() {
+            let wk = format!("{k}.windows[{j}]");
+            if !valid_name(&w.name.value) {
+                self.push(&w.name, &format!("{wk}.name"), format!("{:?} must match [a-z0-9_-]+", w.name.value));
+            } else if !names.insert(w.name.value.clone()) {
+                self.push(&w.name, &format!("{wk}.name"), format!("duplicate window name {:?}", w.name.value));
+            }
+            let kind = match (&w.last, &w.span) {
+                (Some(n), None) if n.value >= 1 => Some(WindowKind::Last(n.value as u64)),
+                (Some(n), None) => {
+                    self.push(n, &format!("{wk}.last"), format!("must be at least 1, got {}", n.value));
+                    None
+                }
+                (None, Some(s)) => self.duration_ms(s, &format!("{wk}.span")).map(WindowKind::SpanMs),
+                (Some(n), Some(_)) => {
+                    self.push(n, &wk, "give last or span, not both");
+                    None
+                }
+                (None, None) => {
+                    self.push(&w.name, &wk, "give last: N (newest N samples) or span: DURATION");
+                    None
+                }
+            };
+            if let Some(kind) = kind {
+                windows.push(WindowConfig { name: w.name.value.clone(), kind });
+            }
+        }
+
+        let sla = raw.sla.as_ref().map(|s| {
+            let s = &s.value;
+            let b = loss.max();
+            if !(s.max_risk.value >= 0.0 && s.max_risk.value <= b) {
+                self.push(
+                    &s.max_risk,
+                    &format!("{k}.sla.max_risk"),
+                    format!("must lie in the loss range [0, {b}], got {}", s.max_risk.value),
+                );
+            }
+            let default_method = if loss.is_binary() { Method::ClopperPearson } else { Method::Betting };
+            let method = match &s.method {
+                None => default_method,
+                Some(m) => match Method::parse(&m.value) {
+                    Some(Method::ClopperPearson) if !loss.is_binary() => {
+                        self.push(m, &format!("{k}.sla.method"), "clopper-pearson needs zero-one loss");
+                        default_method
+                    }
+                    Some(x) => x,
+                    None => {
+                        self.push(m, &format!("{k}.sla.method"), format!("unknown method {:?}", m.value));
+                        default_method
+                    }
+                },
+            };
+            let min_samples = match &s.min_samples {
+                None => 30,
+                Some(n) if n.value >= 1 => n.value as u64,
+                Some(n) => {
+                    self.push(n, &format!("{k}.sla.min_samples"), format!("must be at least 1, got {}", n.value));
+                    1
+                }
+            };
+            let min_label_coverage = match &s.min_label_coverage {
+                None => 0.5,
+                Some(c) if (0.0..=1.0).contains(&c.value) => c.value,
+                Some(c) => {
+                    self.push(
+                        c,
+                        &format!("{k}.sla.min_label_coverage"),
+                        format!("must lie in [0, 1], got {}", c.value),
+                    );
+                    0.0
+                }
+            };
+            SlaConfig { max_risk: s.max_risk.value, method, min_samples, min_label_coverage }
+        });
+
+        if self.issues.len() > start {
+            return None;
+        }
+        Some(ModelConfig {
+            name: raw.name.value.clone(),
+            predictions: predictions?,
+            labels: labels?,
+            loss,
+            confidence,
+            label_wait_ms,
+            windows,
+            sla,
+        })
+    }
+}
+
+/// Turns a parser error into one located issue. The parser reports one problem at a time
+/// (syntax, an unknown key, a wrong type); semantic problems are all collected afterwards.
+fn parse_issue(e: &serde_saphyr::Error) -> ConfigIssue {
+    let (line, column) = e.location().map_or((1, 1), |l| (l.line(), l.column()));
+    let text = e.without_snippet().to_string();
+    let text = text.lines().next().unwrap_or("").trim_start_matches("error: ");
+    // "line L column C: message" → "message"
+    let message = match text.find(": ") {
+        Some(i) if text.starts_with("line ") => &text[i + 2..],
+        _ => text,
+    };
+    let key = message
+        .split('`')
+        .nth(1)
+        .filter(|_| {
+            message.starts_with("unknown field")
+                || message.starts_with("missing field")
+                || message.starts_with("duplicate")
+        })
+        .unwrap_or("(yaml)")
+        .to_string();
+    ConfigIssue { line, column, key, reason: message.to_string() }
+}
+
+/// Reads and validates a config file.
+pub fn load(path: &Path) -> Result<Config, ConfigError> {
+    let file = path.display().to_string();
+    let one = |reason: String| ConfigError {
+        file: file.clone(),
+        issues: vec![ConfigIssue { line: 1, column: 1, key: "(file)".into(), reason }],
+    };
+    let text = std::fs::read_to_string(path).map_err(|e| one(format!("cannot read: {e}")))?;
+    parse(&text, path)
+}
+
+/// Validates config text as if it were read from `path`.
+pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
+    let file = path.display().to_string();
+    let raw: RawConfig =
+        serde_saphyr::from_str(text).map_err(|e| ConfigError { file: file.clone(), issues: vec![parse_issue(&e)] })?;
+    let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
+    let base = if base.as_os_str().is_empty() { PathBuf::from(".") } else { base };
+    let mut c = Checker { base, issues: Vec::new() };
+
+    let listen = match &raw.listen {
+        None => DEFAULT_LISTEN.parse().expect("valid default"),
+        Some(l) => l.value.parse().unwrap_or_else(|_| {
+            c.push(l, "listen", format!("{:?} is not an address:port such as 127.0.0.1:9417", l.value));
+            DEFAULT_LISTEN.parse().expect("valid default")
+        }),
+    };
+    let state_dir = c.path(raw.state_dir.as_ref().map_or("./state", |s| s.value.as_str()));
+    let rescan_interval = match &raw.rescan_interval {
+        None => Duration::from_secs(30),
+        Some(r) => parse_duration(&r.value).unwrap_or_else(|e| {
+            c.push(r, "rescan_interval", e);
+            Duration::from_secs(30)
+        }),
+    };
+    let max_row_bytes = match &raw.max_row_bytes {
+        None => 1 << 20,
+        Some(m) if m.value >= 64 => m.value,
+        Some(m) => {
+            c.push(m, "max_row_bytes", format!("must be at least 64, got {}", m.value));
+            1 << 20
+        }
+    };
+    if raw.models.value.is_empty() {
+        c.push(&raw.models, "models", "at least one model is needed");
+    }
+    let mut models = Vec::new();
+    let mut names = HashSet::new();
+    for (i, m) in raw.models.value.iter().enumerate() {
+        if !names.insert(m.name.value.clone()) {
+            c.push(&m.name, &format!("models[{i}].name"), format!("duplicate model name {:?}", m.name.value));
+        }
+        if let Some(mc) = c.model(m, i) {
+            models.push(mc);
+        }
+    }
+    if !c.issues.is_empty() {
+        c.issues.sort_by_key(|p| (p.line, p.column));
+        return Err(ConfigError { file, issues: c.issues });
+    }
+    Ok(Config { file: path.to_path_buf(), listen, state_dir, rescan_interval, max_row_bytes, models })
+}
+
+impl Config {
+    /// The resolved settings, as `check-config` prints them.
+    pub fn describe(&self) -> String {
+        let mut s = format!(
+            "config: {}\nlisten: {}\nstate_dir: {}\nrescan_interval: {:?}\nmax_row_bytes: {}\n",
+            self.file.display(),
+            self.listen,
+            self.state_dir.display(),
+            self.rescan_interval,
+            self.max_row_bytes
+        );
+        for m in &self.models {
+            s += &format!(
+                "model {}:\n  loss: {}\n  confidence: {}\n  label_wait: {}s\n",
+                m.name,
+                m.loss,
+                m.confidence.level(),
+                m.label_wait_ms / 1000
+            );
+            for (kind, src) in [("predictions", &m.predictions), ("labels", &m.labels)] {
+                s += &format!(
+                    "  {kind}: {}/{} (format: {}; id: {}, time: {}, value: {})\n",
+                    src.dir.display(),
+                    src.pattern,
+                    src.format.map_or("by extension", |f| if f == Format::Csv { "csv" } else { "jsonl" }),
+                    src.id_column,
+                    src.time_column,
+                    src.value_column
+                );
+            }
+            for w in &m.windows {
+                match w.kind {
+                    WindowKind::Last(n) => s += &format!("  window {}: newest {n} labelled samples\n", w.name),
+                    WindowKind::SpanMs(ms) => {
+                        s += &format!("  window {}: prediction time within {}s of the newest\n", w.name, ms / 1000)
+                    }
+                }
+            }
+            match &m.sla {
+                Some(sla) => {
+                    s += &format!(
+                        "  sla: max_risk {} decided by {} (min_samples {}, min_label_coverage {})\n",
+                        sla.max_risk, sla.method, sla.min_samples, sla.min_label_coverage
+                    )
+                }
+                None => s += "  sla: none\n",
+            }
+        }
+        s
+    }
+}
+
+#[cfg(test)]
+mod tests;

@@ -1,0 +1,249 @@
+//! Every metric riskbound exports, named and described in this one file. The values come from
+//! the latest [`Snapshot`], encoded per scrape by a collector, so a window or model that goes
+//! away takes its series with it and a scrape never waits for the ingest pipeline.
+
+use std::sync::{Arc, RwLock};
+
+use prometheus_client::collector::Collector;
+use prometheus_client::encoding::{DescriptorEncoder, EncodeMetric};
+use prometheus_client::metrics::counter::ConstCounter;
+use prometheus_client::metrics::gauge::ConstGauge;
+use prometheus_client::metrics::MetricType;
+use prometheus_client::registry::Registry;
+
+use crate::estimate::sla::SlaState;
+use crate::ingest::records::RejectReason;
+use crate::window::store::DELAY_BUCKETS;
+use crate::window::{Kind, Snapshot};
+
+/// The shared snapshot the pipeline publishes and scrapes read.
+pub type SharedSnapshot = Arc<RwLock<Arc<Snapshot>>>;
+
+/// Metric names (without the `_total` the encoder adds to counters), for tests and docs.
+pub mod names {
+    pub const UPPER: &str = "riskbound_risk_upper_bound";
+    pub const LOWER: &str = "riskbound_risk_lower_bound";
+    pub const OBSERVED: &str = "riskbound_risk_observed";
+    pub const SAMPLES: &str = "riskbound_window_samples";
+    pub const CONFIDENCE: &str = "riskbound_bound_confidence_ratio";
+    pub const SLA_MAX: &str = "riskbound_sla_max_risk";
+    pub const SLA_STATE: &str = "riskbound_sla_state";
+    pub const ROWS: &str = "riskbound_rows_ingested";
+    pub const REJECTED: &str = "riskbound_rows_rejected";
+    pub const FILES: &str = "riskbound_files_ingested";
+    pub const AWAITING: &str = "riskbound_predictions_awaiting_label";
+    pub const EXPIRED: &str = "riskbound_predictions_expired";
+    pub const ORPHANED: &str = "riskbound_labels_orphaned";
+    pub const LABELLED: &str = "riskbound_samples_labelled";
+    pub const COVERAGE: &str = "riskbound_label_coverage_ratio";
+    pub const DELAY: &str = "riskbound_label_delay_seconds";
+    pub const LAST_INGEST: &str = "riskbound_last_ingest_timestamp_seconds";
+    pub const BUILD_INFO: &str = "riskbound_build_info";
+}
+
+type Labels = Vec<(&'static str, String)>;
+
+#[derive(Debug)]
+struct SnapshotCollector {
+    snapshot: SharedSnapshot,
+}
+
+fn family<M: EncodeMetric>(
+    enc: &mut DescriptorEncoder,
+    name: &str,
+    help: &str,
+    kind: MetricType,
+    series: impl IntoIterator<Item = (Labels, M)>,
+) -> Result<(), std::fmt::Error> {
+    let mut m = enc.encode_descriptor(name, help, None, kind)?;
+    for (labels, value) in series {
+        value.encode(m.encode_family(&labels)?)?;
+    }
+    Ok(())
+}
+
+fn gauges(
+    enc: &mut DescriptorEncoder,
+    name: &str,
+    help: &str,
+    series: impl IntoIterator<Item = (Labels, f64)>,
+) -> Result<(), std::fmt::Error> {
+    family(enc, name, help, MetricType::Gauge, series.into_iter().map(|(l, v)| (l, ConstGauge::new(v))))
+}
+
+fn counters(
+    enc: &mut DescriptorEncoder,
+    name: &str,
+    help: &str,
+    series: impl IntoIterator<Item = (Labels, u64)>,
+) -> Result<(), std::fmt::Error> {
+    family(enc, name, help, MetricType::Counter, series.into_iter().map(|(l, v)| (l, ConstCounter::new(v))))
+}
+
+impl Collector for SnapshotCollector {
+    fn encode(&self, mut enc: DescriptorEncoder) -> Result<(), std::fmt::Error> {
+        let snap = self.snapshot.read().map(|s| Arc::clone(&s)).unwrap_or_default();
+        let e = &mut enc;
+        let mw = |m: &str, w: &str| -> Labels { vec![("model", m.to_string()), ("window", w.to_string())] };
+        let per_method = |upper: bool| {
+            let mut v = Vec::new();
+            for m in &snap.models {
+                for w in &m.windows {
+                    for (method, b) in &w.bounds {
+                        let mut l = mw(&m.name, &w.name);
+                        l.push(("method", method.name().to_string()));
+                        v.push((l, if upper { b.upper } else { b.lower }));
+                    }
+                }
+            }
+            v
+        };
+        gauges(e, names::UPPER, "Upper confidence bound on the window's true risk: the risk is at or below it with probability at least the bound confidence", per_method(true))?;
+        gauges(e, names::LOWER, "Lower confidence bound on the window's true risk: the risk is at or above it with probability at least the bound confidence", per_method(false))?;
+        let per_window = |f: &dyn Fn(&crate::window::WindowSnapshot) -> f64| {
+            snap.models
+                .iter()
+                .flat_map(|m| m.windows.iter().map(move |w| (mw(&m.name, &w.name), f(w))))
+                .collect::<Vec<_>>()
+        };
+        gauges(
+            e,
+            names::OBSERVED,
+            "Mean loss of the window's labelled samples (a point estimate, not a bound)",
+            per_window(&|w| w.mean),
+        )?;
+        gauges(e, names::SAMPLES, "Labelled samples in the window", per_window(&|w| w.n as f64))?;
+        let model = |m: &str| -> Labels { vec![("model", m.to_string())] };
+        gauges(
+            e,
+            names::CONFIDENCE,
+            "Confidence of each one-sided bound of the model",
+            snap.models.iter().map(|m| (model(&m.name), m.confidence)),
+        )?;
+        gauges(
+            e,
+            names::SLA_MAX,
+            "The model's SLA: the largest acceptable true risk",
+            snap.models.iter().filter_map(|m| m.sla.as_ref().map(|s| (model(&m.name), s.max_risk))),
+        )?;
+        let mut states = Vec::new();
+        for m in &snap.models {
+            for w in &m.windows {
+                if let Some((state, _)) = w.state {
+                    for s in SlaState::ALL {
+                        let mut l = mw(&m.name, &w.name);
+                        l.push(("state", s.as_str().to_string()));
+                        states.push((l, f64::from(u8::from(s == state))));
+                    }
+                }
+            }
+        }
+        gauges(e, names::SLA_STATE, "1 for the window's current SLA state (ok: upper bound at or below max risk; violated: lower bound above it; inconclusive: neither, too few samples, or too few labels), 0 for the others", states)?;
+        let kinds = [Kind::Prediction, Kind::Label];
+        let mk = |m: &str, k: Kind| -> Labels { vec![("model", m.to_string()), ("kind", k.as_str().to_string())] };
+        counters(
+            e,
+            names::ROWS,
+            "Rows taken from batch files",
+            snap.models
+                .iter()
+                .flat_map(|m| kinds.map(|k| (mk(&m.name, k), m.counters.rows.get(&k).copied().unwrap_or(0)))),
+        )?;
+        let mut rejected = Vec::new();
+        for m in &snap.models {
+            for k in kinds {
+                for r in RejectReason::ALL.into_iter().filter(|r| r.possible_for(k == Kind::Label)) {
+                    let mut l = mk(&m.name, k);
+                    l.push(("reason", r.as_str().to_string()));
+                    rejected.push((l, m.counters.rejected.get(&(k, r)).copied().unwrap_or(0)));
+                }
+            }
+        }
+        counters(e, names::REJECTED, "Rows rejected, by reason; the rest of each file is kept", rejected)?;
+        counters(
+            e,
+            names::FILES,
+            "Batch files taken (each content once, whatever its name)",
+            snap.models
+                .iter()
+                .flat_map(|m| kinds.map(|k| (mk(&m.name, k), m.counters.files.get(&k).copied().unwrap_or(0)))),
+        )?;
+        gauges(
+            e,
+            names::AWAITING,
+            "Predictions waiting for their label",
+            snap.models.iter().map(|m| (model(&m.name), m.awaiting as f64)),
+        )?;
+        counters(
+            e,
+            names::EXPIRED,
+            "Predictions dropped because no label came within label_wait",
+            snap.models.iter().map(|m| (model(&m.name), m.counters.expired)),
+        )?;
+        counters(
+            e,
+            names::ORPHANED,
+            "Labels dropped because no prediction came within label_wait",
+            snap.models.iter().map(|m| (model(&m.name), m.counters.orphaned)),
+        )?;
+        counters(
+            e,
+            names::LABELLED,
+            "Predictions joined with their label",
+            snap.models.iter().map(|m| (model(&m.name), m.counters.joined)),
+        )?;
+        gauges(
+            e,
+            names::COVERAGE,
+            "Fraction of predictions whose wait is over that got a label (labelled / (labelled + expired))",
+            snap.models.iter().filter_map(|m| m.label_coverage.map(|c| (model(&m.name), c))),
+        )?;
+        {
+            let mut h = e.encode_descriptor(
+                names::DELAY,
+                "Time from prediction to label, by event time",
+                None,
+                MetricType::Histogram,
+            )?;
+            for m in &snap.models {
+                let mut buckets: Vec<(f64, u64)> =
+                    DELAY_BUCKETS.iter().copied().zip(m.counters.delay_buckets.iter().copied()).collect();
+                buckets.push((f64::INFINITY, m.counters.delay_buckets.last().copied().unwrap_or(0)));
+                let labels = model(&m.name);
+                h.encode_family(&labels)?.encode_histogram::<Labels>(
+                    m.counters.delay_sum_seconds,
+                    m.counters.delay_count,
+                    &buckets,
+                    None,
+                )?;
+            }
+        }
+        gauges(
+            e,
+            names::LAST_INGEST,
+            "Unix time of the model's last committed batch file",
+            snap.models.iter().filter_map(|m| m.last_commit_ms.map(|t| (model(&m.name), t as f64 / 1000.0))),
+        )?;
+        gauges(
+            e,
+            names::BUILD_INFO,
+            "riskbound build",
+            [(vec![("version", env!("CARGO_PKG_VERSION").to_string())], 1.0)],
+        )?;
+        Ok(())
+    }
+}
+
+/// A registry whose every scrape encodes the current snapshot.
+pub fn registry(snapshot: SharedSnapshot) -> Registry {
+    let mut r = Registry::default();
+    r.register_collector(Box::new(SnapshotCollector { snapshot }));
+    r
+}
+
+/// The Prometheus text exposition (version 0.0.4) of the registry.
+pub fn render(registry: &Registry) -> String {
+    let mut out = String::with_capacity(16 * 1024);
+    prometheus_client::encoding::prometheus_text::encode(&mut out, registry).expect("writing to a String cannot fail");
+    out
+}

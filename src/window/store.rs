@@ -1,0 +1,547 @@
+//! Durable state in one SQLite database (WAL, synchronous=FULL): which files were taken, the
+//! predictions waiting for labels, labels waiting for predictions, the joined samples that feed
+//! the windows, and every counter the daemon exports.
+//!
+//! One transaction per input file holds the file's fingerprint and every change it causes, so a
+//! kill -9 at any instant leaves either all of a file or none of it: nothing lost, nothing twice.
+//! Counters live in the same transactions, so they survive restarts without double counting.
+
+use std::collections::BTreeMap;
+use std::path::Path;
+
+use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
+
+use crate::config::{ModelConfig, WindowKind};
+use crate::ingest::records::{Record, Reject, RejectReason};
+use crate::loss::{self, LossSpec};
+
+/// Whether a file holds predictions or labels. The names are the `kind` label values.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Kind {
+    Prediction,
+    Label,
+}
+
+impl Kind {
+    /// The label value.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Kind::Prediction => "prediction",
+            Kind::Label => "label",
+        }
+    }
+}
+
+/// Upper bounds (seconds) of the label-delay histogram buckets: a minute to two weeks.
+pub const DELAY_BUCKETS: [f64; 12] =
+    [60.0, 300.0, 900.0, 3600.0, 10800.0, 21600.0, 43200.0, 86400.0, 172800.0, 259200.0, 604800.0, 1209600.0];
+
+/// A state-database failure.
+#[derive(Debug, thiserror::Error)]
+pub enum StoreError {
+    #[error("state database: {0}")]
+    Sql(#[from] rusqlite::Error),
+}
+
+impl StoreError {
+    /// True when the failure is the disk (full, read-only, I/O), not a logic error.
+    pub fn is_disk(&self) -> bool {
+        let StoreError::Sql(rusqlite::Error::SqliteFailure(e, _)) = self else { return false };
+        matches!(
+            e.code,
+            rusqlite::ErrorCode::DiskFull
+                | rusqlite::ErrorCode::ReadOnly
+                | rusqlite::ErrorCode::SystemIoFailure
+                | rusqlite::ErrorCode::CannotOpen
+        )
+    }
+}
+
+/// What one file did.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct FileOutcome {
+    /// The same content was taken before (under any name): nothing changed.
+    pub already_taken: bool,
+    pub rows_ok: u64,
+    pub rejected: BTreeMap<RejectReason, u64>,
+    /// The first rejected row, for the log line.
+    pub first_reject: Option<Reject>,
+    /// Labelled samples this file completed.
+    pub joined: u64,
+}
+
+/// The counters of one model, as exported.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Counters {
+    pub rows: BTreeMap<Kind, u64>,
+    pub files: BTreeMap<Kind, u64>,
+    pub rejected: BTreeMap<(Kind, RejectReason), u64>,
+    pub joined: u64,
+    pub expired: u64,
+    pub orphaned: u64,
+    /// Cumulative counts per bucket of [`DELAY_BUCKETS`] (non-cumulative storage, summed on read).
+    pub delay_buckets: Vec<u64>,
+    pub delay_count: u64,
+    pub delay_sum_seconds: f64,
+}
+
+/// One decoded batch file, ready to apply.
+pub struct Batch<'a> {
+    pub kind: Kind,
+    /// The file's name, for messages.
+    pub name: &'a str,
+    /// Hex SHA-256 of the file's bytes: its identity, whatever its name.
+    pub hash: &'a str,
+    pub records: &'a [Record],
+    pub rejects: &'a [Reject],
+}
+
+/// The durable state.
+pub struct Store {
+    conn: Connection,
+}
+
+const SCHEMA: &str = "
+CREATE TABLE IF NOT EXISTS file (
+    model TEXT NOT NULL, kind TEXT NOT NULL, hash TEXT NOT NULL, name TEXT NOT NULL,
+    rows_ok INTEGER NOT NULL, rows_bad INTEGER NOT NULL, committed_ms INTEGER NOT NULL,
+    PRIMARY KEY (model, kind, hash));
+CREATE TABLE IF NOT EXISTS pred (
+    model TEXT NOT NULL, id TEXT NOT NULL, t_pred INTEGER NOT NULL, value TEXT NOT NULL,
+    state INTEGER NOT NULL, label TEXT,
+    PRIMARY KEY (model, id)) WITHOUT ROWID;
+CREATE INDEX IF NOT EXISTS pred_waiting ON pred (model, state, t_pred);
+CREATE TABLE IF NOT EXISTS orphan (
+    model TEXT NOT NULL, id TEXT NOT NULL, t_label INTEGER NOT NULL, value TEXT NOT NULL,
+    PRIMARY KEY (model, id)) WITHOUT ROWID;
+CREATE INDEX IF NOT EXISTS orphan_time ON orphan (model, t_label);
+CREATE TABLE IF NOT EXISTS sample (
+    seq INTEGER PRIMARY KEY AUTOINCREMENT, model TEXT NOT NULL, id TEXT NOT NULL,
+    t_pred INTEGER NOT NULL, t_label INTEGER NOT NULL, loss REAL NOT NULL);
+CREATE INDEX IF NOT EXISTS sample_time ON sample (model, t_pred);
+CREATE TABLE IF NOT EXISTS counter (
+    model TEXT NOT NULL, name TEXT NOT NULL, value REAL NOT NULL,
+    PRIMARY KEY (model, name));
+CREATE TABLE IF NOT EXISTS model_meta (
+    model TEXT PRIMARY KEY, watermark INTEGER, last_commit_ms INTEGER);
+";
+
+const AWAITING: i64 = 0;
+const LABELLED: i64 = 1;
+const EXPIRED: i64 = 2;
+
+/// Adds to a counter inside the current transaction.
+fn bump(tx: &Connection, model: &str, name: &str, by: f64) -> rusqlite::Result<()> {
+    if by == 0.0 {
+        return Ok(());
+    }
+    tx.prepare_cached(
+        "INSERT INTO counter (model, name, value) VALUES (?1, ?2, ?3)
+         ON CONFLICT (model, name) DO UPDATE SET value = value + excluded.value",
+    )?
+    .execute(params![model, name, by])?;
+    Ok(())
+}
+
+/// The loss of a labelled prediction, or why there is none.
+fn loss_of(spec: &LossSpec, prediction: &str, label: &str) -> Result<f64, RejectReason> {
+    match *spec {
+        LossSpec::ZeroOne => Ok(loss::zero_one(prediction.trim().as_bytes(), label.trim().as_bytes())),
+        LossSpec::Absolute { .. } | LossSpec::Squared { .. } => {
+            let p = loss::parse_number(prediction.as_bytes()).map_err(|_| RejectReason::BadNumber)?;
+            let y = loss::parse_number(label.as_bytes()).map_err(|_| RejectReason::BadNumber)?;
+            Ok(loss::regression(spec, p, y).value)
+        }
+        LossSpec::Column { max } => {
+            let v = loss::parse_number(label.as_bytes()).map_err(|_| RejectReason::BadNumber)?;
+            loss::check_loss(v, max).map_err(|_| RejectReason::OutOfRange)
+        }
+    }
+}
+
+/// Checks a value cell when it arrives, so a bad row is rejected at its own line.
+fn check_value(spec: &LossSpec, kind: Kind, value: &str) -> Result<(), RejectReason> {
+    match (spec, kind) {
+        (LossSpec::ZeroOne, _) | (LossSpec::Column { .. }, Kind::Prediction) => Ok(()),
+        (LossSpec::Column { max }, Kind::Label) => {
+            let v = loss::parse_number(value.as_bytes()).map_err(|_| RejectReason::BadNumber)?;
+            loss::check_loss(v, *max).map(|_| ()).map_err(|_| RejectReason::OutOfRange)
+        }
+        (_, _) => loss::parse_number(value.as_bytes()).map(|_| ()).map_err(|_| RejectReason::BadNumber),
+    }
+}
+
+impl Store {
+    /// Opens (creating if needed) the database in `dir`.
+    pub fn open(dir: &Path) -> Result<Store, StoreError> {
+        let conn = Connection::open(dir.join("riskbound.sqlite"))?;
+        // WAL lets /metrics readers and the writer proceed together; FULL makes each commit
+        // durable before the file counts as taken.
+        conn.pragma_update(None, "journal_mode", "WAL")?;
+        conn.pragma_update(None, "synchronous", "FULL")?;
+        conn.busy_timeout(std::time::Duration::from_secs(5))?;
+        // A larger page cache keeps the pred index in memory during a big file.
+        conn.pragma_update(None, "cache_size", -65_536)?;
+        conn.pragma_update(None, "temp_store", "MEMORY")?;
+        conn.execute_batch(SCHEMA)?;
+        Ok(Store { conn })
+    }
+
+    /// True when this content was already taken for (model, kind).
+    pub fn has_file(&self, model: &str, kind: Kind, hash: &str) -> Result<bool, StoreError> {
+        Ok(self
+            .conn
+            .prepare_cached("SELECT 1 FROM file WHERE model = ?1 AND kind = ?2 AND hash = ?3")?
+            .query_row(params![model, kind.as_str(), hash], |_| Ok(()))
+            .optional()?
+            .is_some())
+    }
+
+    /// Applies one decoded file in one transaction: its rows, its rejects, the joins they
+    /// complete, the expiry they cause, and its fingerprint.
+    pub fn ingest_file(
+        &mut self,
+        model: &ModelConfig,
+        batch: &Batch<'_>,
+        now_ms: i64,
+    ) -> Result<FileOutcome, StoreError> {
+        let Batch { kind, name, hash, records, rejects } = *batch;
+        let m = model.name.as_str();
+        let tx = self.conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+        let mut out = FileOutcome::default();
+        let seen: bool = tx
+            .prepare_cached("SELECT 1 FROM file WHERE model = ?1 AND kind = ?2 AND hash = ?3")?
+            .query_row(params![m, kind.as_str(), hash], |_| Ok(()))
+            .optional()?
+            .is_some();
+        if seen {
+            out.already_taken = true;
+            return Ok(out);
+        }
+        let mut watermark: i64 = tx
+            .query_row("SELECT watermark FROM model_meta WHERE model = ?1", [m], |r| r.get::<_, Option<i64>>(0))
+            .optional()?
+            .flatten()
+            .unwrap_or(i64::MIN);
+        let mut delays: Vec<f64> = Vec::new();
+        // Most predictions have no early label; skip the per-row lookup when none is held.
+        let mut orphans_held: bool =
+            tx.query_row("SELECT EXISTS (SELECT 1 FROM orphan WHERE model = ?1)", [m], |r| r.get(0))?;
+        let reject = |out: &mut FileOutcome, r: Reject| {
+            *out.rejected.entry(r.reason).or_default() += 1;
+            if out.first_reject.is_none() {
+                out.first_reject = Some(r);
+            }
+        };
+        for r in rejects {
+            reject(&mut out, r.clone());
+        }
+        for rec in records {
+            if let Err(reason) = check_value(&model.loss, kind, &rec.value) {
+                let message = format!("{name}:{}: value {:?}: {reason}", rec.line, rec.value);
+                reject(&mut out, Reject { line: rec.line, reason, message });
+                continue;
+            }
+            let result = match kind {
+                Kind::Prediction => Self::take_prediction(&tx, model, rec, orphans_held, &mut delays)?,
+                Kind::Label => Self::take_label(&tx, model, rec, &mut orphans_held, &mut delays)?,
+            };
+            match result {
+                Ok(joined) => {
+                    out.rows_ok += 1;
+                    out.joined += u64::from(joined);
+                    watermark = watermark.max(rec.time_ms);
+                }
+                Err(reason) => {
+                    let message = format!("{name}:{}: id {:?}: {reason}", rec.line, rec.id);
+                    reject(&mut out, Reject { line: rec.line, reason, message });
+                }
+            }
+        }
+        // Expiry by event time: what waited longer than label_wait behind the newest event.
+        if watermark > i64::MIN {
+            let cutoff = watermark.saturating_sub(model.label_wait_ms);
+            let expired = tx
+                .prepare_cached("UPDATE pred SET state = ?1 WHERE model = ?2 AND state = ?3 AND t_pred < ?4")?
+                .execute(params![EXPIRED, m, AWAITING, cutoff])?;
+            let orphaned = tx
+                .prepare_cached("DELETE FROM orphan WHERE model = ?1 AND t_label < ?2")?
+                .execute(params![m, cutoff])?;
+            bump(&tx, m, "expired", expired as f64)?;
+            bump(&tx, m, "orphaned", orphaned as f64)?;
+            // Decided predictions are kept a second label_wait to catch late duplicates.
+            tx.prepare_cached("DELETE FROM pred WHERE model = ?1 AND state IN (?2, ?3) AND t_pred < ?4")?
+                .execute(params![m, LABELLED, EXPIRED, cutoff.saturating_sub(model.label_wait_ms)])?;
+        }
+        for d in &delays {
+            let i = DELAY_BUCKETS.iter().position(|b| d <= b).unwrap_or(DELAY_BUCKETS.len());
+            bump(&tx, m, &format!("delay_bucket_{i}"), 1.0)?;
+        }
+        bump(&tx, m, "delay_count", delays.len() as f64)?;
+        bump(&tx, m, "delay_sum_seconds", delays.iter().sum())?;
+        bump(&tx, m, &format!("rows_{}", kind.as_str()), out.rows_ok as f64)?;
+        bump(&tx, m, &format!("files_{}", kind.as_str()), 1.0)?;
+        bump(&tx, m, "joined", out.joined as f64)?;
+        for (reason, n) in &out.rejected {
+            bump(&tx, m, &format!("rejected_{}_{}", kind.as_str(), reason.as_str()), *n as f64)?;
+        }
+        let bad: u64 = out.rejected.values().sum();
+        tx.execute(
+            "INSERT INTO file (model, kind, hash, name, rows_ok, rows_bad, committed_ms) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+            params![m, kind.as_str(), hash, name, out.rows_ok as i64, bad as i64, now_ms],
+        )?;
+        tx.execute(
+            "INSERT INTO model_meta (model, watermark, last_commit_ms) VALUES (?1, ?2, ?3)
+             ON CONFLICT (model) DO UPDATE SET watermark = excluded.watermark, last_commit_ms = excluded.last_commit_ms",
+            params![m, if watermark == i64::MIN { None } else { Some(watermark) }, now_ms],
+        )?;
+        Self::prune_samples(&tx, model)?;
+        tx.commit()?;
+        Ok(out)
+    }
+
+    fn insert_sample(
+        tx: &Connection,
+        model: &str,
+        id: &str,
+        t_pred: i64,
+        t_label: i64,
+        loss: f64,
+    ) -> rusqlite::Result<()> {
+        tx.prepare_cached("INSERT INTO sample (model, id, t_pred, t_label, loss) VALUES (?1, ?2, ?3, ?4, ?5)")?
+            .execute(params![model, id, t_pred, t_label, loss])?;
+        Ok(())
+    }
+
+    /// A prediction: rejected if its id was seen, joined at once if its label came first.
+    fn take_prediction(
+        tx: &Connection,
+        model: &ModelConfig,
+        rec: &Record,
+        orphans_held: bool,
+        delays: &mut Vec<f64>,
+    ) -> rusqlite::Result<Result<bool, RejectReason>> {
+        let m = model.name.as_str();
+        let orphan: Option<(i64, String)> = if orphans_held {
+            tx.prepare_cached("DELETE FROM orphan WHERE model = ?1 AND id = ?2 RETURNING t_label, value")?
+                .query_row(params![m, rec.id], |r| Ok((r.get(0)?, r.get(1)?)))
+                .optional()?
+        } else {
+            None
+        };
+        let joined = match &orphan {
+            Some((t_label, label)) if (t_label - rec.time_ms) <= model.label_wait_ms => {
+                loss_of(&model.loss, &rec.value, label).ok().map(|l| (*t_label, label.as_str(), l))
+            }
+            _ => None,
+        };
+        let (state, label) = match joined {
+            Some((_, label, _)) => (LABELLED, Some(label)),
+            None => (AWAITING, None),
+        };
+        let inserted = tx
+            .prepare_cached(
+                "INSERT INTO pred (model, id, t_pred, value, state, label) VALUES (?1, ?2, ?3, ?4, ?5, ?6)
+                 ON CONFLICT (model, id) DO NOTHING",
+            )?
+            .execute(params![m, rec.id, rec.time_ms, rec.value, state, label])?;
+        if inserted == 0 {
+            // The id was seen before; a label taken from the held ones goes back.
+            if let Some((t_label, label)) = &orphan {
+                tx.prepare_cached("INSERT INTO orphan (model, id, t_label, value) VALUES (?1, ?2, ?3, ?4)")?
+                    .execute(params![m, rec.id, t_label, label])?;
+            }
+            return Ok(Err(RejectReason::DuplicatePrediction));
+        }
+        match (joined, &orphan) {
+            (Some((t_label, _, l)), _) => {
+                Self::insert_sample(tx, m, &rec.id, rec.time_ms, t_label, l)?;
+                delays.push(((t_label - rec.time_ms).max(0) as f64) / 1000.0);
+                Ok(Ok(true))
+            }
+            (None, Some(_)) => {
+                // The held label was too late for this prediction (or unusable with it): it is
+                // counted as orphaned, and the prediction waits for a label of its own.
+                bump(tx, m, "orphaned", 1.0)?;
+                Ok(Ok(false))
+            }
+            (None, None) => Ok(Ok(false)),
+        }
+    }
+
+    /// A label: joined if its prediction waits, held if the prediction has not come yet.
+    fn take_label(
+        tx: &Connection,
+        model: &ModelConfig,
+        rec: &Record,
+        orphans_held: &mut bool,
+        delays: &mut Vec<f64>,
+    ) -> rusqlite::Result<Result<bool, RejectReason>> {
+        let m = model.name.as_str();
+        // The common case in one statement: a waiting prediction within label_wait.
+        let waiting: Option<(i64, String)> = tx
+            .prepare_cached(
+                "UPDATE pred SET state = ?1, label = ?2
+                 WHERE model = ?3 AND id = ?4 AND state = ?5 AND ?6 - t_pred <= ?7
+                 RETURNING t_pred, value",
+            )?
+            .query_row(params![LABELLED, rec.value, m, rec.id, AWAITING, rec.time_ms, model.label_wait_ms], |r| {
+                Ok((r.get(0)?, r.get(1)?))
+            })
+            .optional()?;
+        if let Some((t_pred, value)) = waiting {
+            // Both cells were validated when their rows arrived, so the loss exists.
+            let l = loss_of(&model.loss, &value, &rec.value).unwrap_or(model.loss.max());
+            Self::insert_sample(tx, m, &rec.id, t_pred, rec.time_ms, l)?;
+            delays.push(((rec.time_ms - t_pred).max(0) as f64) / 1000.0);
+            return Ok(Ok(true));
+        }
+        let same = |old: &str| {
+            if old.trim() == rec.value.trim() {
+                RejectReason::DuplicateLabel
+            } else {
+                RejectReason::ConflictingLabel
+            }
+        };
+        let pred: Option<(i64, Option<String>)> = tx
+            .prepare_cached("SELECT state, label FROM pred WHERE model = ?1 AND id = ?2")?
+            .query_row(params![m, rec.id], |r| Ok((r.get(0)?, r.get(1)?)))
+            .optional()?;
+        match pred {
+            Some((LABELLED, Some(old))) => Ok(Err(same(&old))),
+            // Expired, or still waiting but this label came later than label_wait.
+            Some(_) => Ok(Err(RejectReason::LateLabel)),
+            None => {
+                let held: Option<String> = tx
+                    .prepare_cached("SELECT value FROM orphan WHERE model = ?1 AND id = ?2")?
+                    .query_row(params![m, rec.id], |r| r.get(0))
+                    .optional()?;
+                if let Some(old) = held {
+                    return Ok(Err(same(&old)));
+                }
+                tx.prepare_cached("INSERT INTO orphan (model, id, t_label, value) VALUES (?1, ?2, ?3, ?4)")?
+                    .execute(params![m, rec.id, rec.time_ms, rec.value])?;
+                *orphans_held = true;
+                Ok(Ok(false))
+            }
+        }
+    }
+
+    /// Deletes samples that no window can reach any more: older than the largest span behind
+    /// the newest sample and not among the newest `last` samples of the largest count window.
+    fn prune_samples(tx: &Connection, model: &ModelConfig) -> rusqlite::Result<()> {
+        let m = model.name.as_str();
+        let newest: Option<i64> = tx.query_row("SELECT MAX(t_pred) FROM sample WHERE model = ?1", [m], |r| r.get(0))?;
+        let Some(newest) = newest else { return Ok(()) };
+        let mut keep_from = i64::MAX;
+        for w in &model.windows {
+            let from = match w.kind {
+                WindowKind::SpanMs(ms) => newest.saturating_sub(ms),
+                WindowKind::Last(n) => tx
+                    .query_row(
+                        "SELECT t_pred FROM sample WHERE model = ?1 ORDER BY t_pred DESC, seq DESC LIMIT 1 OFFSET ?2",
+                        params![m, (n - 1) as i64],
+                        |r| r.get(0),
+                    )
+                    .optional()?
+                    .unwrap_or(i64::MIN),
+            };
+            keep_from = keep_from.min(from);
+        }
+        tx.prepare_cached("DELETE FROM sample WHERE model = ?1 AND t_pred < ?2")?.execute(params![m, keep_from])?;
+        Ok(())
+    }
+
+    /// The losses of one window, in arrival order (the order betting needs).
+    pub fn window_losses(&self, model: &str, kind: WindowKind) -> Result<Vec<f64>, StoreError> {
+        let mut out = Vec::new();
+        match kind {
+            WindowKind::Last(n) => {
+                let mut st = self.conn.prepare_cached(
+                    "SELECT loss FROM (SELECT seq, loss FROM sample WHERE model = ?1 ORDER BY t_pred DESC, seq DESC LIMIT ?2) ORDER BY seq",
+                )?;
+                let rows = st.query_map(params![model, n as i64], |r| r.get::<_, f64>(0))?;
+                for r in rows {
+                    out.push(r?);
+                }
+            }
+            WindowKind::SpanMs(ms) => {
+                let mut st = self.conn.prepare_cached(
+                    "SELECT loss FROM sample WHERE model = ?1
+                     AND t_pred >= (SELECT MAX(t_pred) FROM sample WHERE model = ?1) - ?2 ORDER BY seq",
+                )?;
+                let rows = st.query_map(params![model, ms], |r| r.get::<_, f64>(0))?;
+                for r in rows {
+                    out.push(r?);
+                }
+            }
+        }
+        Ok(out)
+    }
+
+    /// Predictions still waiting for a label.
+    pub fn awaiting(&self, model: &str) -> Result<u64, StoreError> {
+        let n: i64 = self.conn.query_row(
+            "SELECT COUNT(*) FROM pred WHERE model = ?1 AND state = ?2",
+            params![model, AWAITING],
+            |r| r.get(0),
+        )?;
+        Ok(n as u64)
+    }
+
+    /// Wall-clock time (ms) of the model's last committed file.
+    pub fn last_commit_ms(&self, model: &str) -> Result<Option<i64>, StoreError> {
+        Ok(self
+            .conn
+            .query_row("SELECT last_commit_ms FROM model_meta WHERE model = ?1", [model], |r| {
+                r.get::<_, Option<i64>>(0)
+            })
+            .optional()?
+            .flatten())
+    }
+
+    /// Every counter of a model.
+    pub fn counters(&self, model: &str) -> Result<Counters, StoreError> {
+        let mut c = Counters { delay_buckets: vec![0; DELAY_BUCKETS.len() + 1], ..Counters::default() };
+        let mut st = self.conn.prepare_cached("SELECT name, value FROM counter WHERE model = ?1")?;
+        let rows = st.query_map([model], |r| Ok((r.get::<_, String>(0)?, r.get::<_, f64>(1)?)))?;
+        for row in rows {
+            let (name, v) = row?;
+            let n = v as u64;
+            let kind = |s: &str| {
+                if s == "prediction" {
+                    Some(Kind::Prediction)
+                } else if s == "label" {
+                    Some(Kind::Label)
+                } else {
+                    None
+                }
+            };
+            if let Some(k) = name.strip_prefix("rows_").and_then(kind) {
+                c.rows.insert(k, n);
+            } else if let Some(k) = name.strip_prefix("files_").and_then(kind) {
+                c.files.insert(k, n);
+            } else if let Some(rest) = name.strip_prefix("rejected_") {
+                if let Some((k, reason)) = rest.split_once('_') {
+                    if let (Some(k), Some(reason)) = (kind(k), RejectReason::parse(reason)) {
+                        c.rejected.insert((k, reason), n);
+                    }
+                }
+            } else if let Some(i) = name.strip_prefix("delay_bucket_").and_then(|i| i.parse::<usize>().ok()) {
+                if i < c.delay_buckets.len() {
+                    c.delay_buckets[i] = n;
+                }
+            } else {
+                match name.as_str() {
+                    "joined" => c.joined = n,
+                    "expired" => c.expired = n,
+                    "orphaned" => c.orphaned = n,
+                    "delay_count" => c.delay_count = n,
+                    "delay_sum_seconds" => c.delay_sum_seconds = v,
+                    _ => {}
+                }
+            }
+        }
+        Ok(c)
+    }
+}

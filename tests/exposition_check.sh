@@ -1,0 +1,38 @@
+#!/usr/bin/env bash
+# A live /metrics scrape checked by two parsers from outside the project: Prometheus's own
+# `promtool check metrics` (Debian's prometheus package) and the Prometheus Python client's
+# text parser. Run by .ci/run after the release build; needs promtool and prometheus_client.
+set -euo pipefail
+bin=${1:-target/release/riskbound}
+work=$(mktemp -d)
+trap 'kill "${pid:-0}" 2>/dev/null || true; wait "${pid:-0}" 2>/dev/null || true; rm -rf "$work"' EXIT
+port=$(python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1", 0)); print(s.getsockname()[1])')
+# Three simulated days of the demo scenario leave batches, a config and committed state.
+"$bin" demo --dir "$work" --days 3 --ms-per-hour 0 --listen "127.0.0.1:$port" --exit-when-done > "$work/demo.out" 2> "$work/demo.err"
+"$bin" run --config "$work/riskbound.yaml" 2> "$work/run.err" &
+pid=$!
+for _ in $(seq 200); do
+  curl -sf "http://127.0.0.1:$port/readyz" > /dev/null && break
+  sleep 0.05
+done
+curl -sf "http://127.0.0.1:$port/metrics" > "$work/metrics.txt"
+echo "scraped $(grep -vc '^#' "$work/metrics.txt") series"
+# promtool exits 0 with no output when the exposition is valid and lint-clean.
+promtool check metrics < "$work/metrics.txt"
+python3 - "$work/metrics.txt" <<'PY'
+import sys
+from prometheus_client.parser import text_string_to_metric_families
+fams = list(text_string_to_metric_families(open(sys.argv[1]).read()))
+names = {f.name for f in fams}
+need = {"riskbound_risk_upper_bound", "riskbound_risk_lower_bound", "riskbound_risk_observed",
+        "riskbound_window_samples", "riskbound_sla_max_risk", "riskbound_sla_state",
+        "riskbound_rows_ingested", "riskbound_rows_rejected", "riskbound_files_ingested",
+        "riskbound_predictions_awaiting_label", "riskbound_label_delay_seconds",
+        "riskbound_last_ingest_timestamp_seconds", "riskbound_build_info"}
+missing = need - names
+assert not missing, f"missing families: {missing}"
+print(f"prometheus_client parsed {len(fams)} families, {sum(len(f.samples) for f in fams)} samples")
+PY
+kill -TERM "$pid"
+wait "$pid"
+echo "exposition check: ok"
