@@ -14,14 +14,15 @@ use std::sync::{Arc, RwLock};
 use std::time::{Duration, Instant, SystemTime, UNIX_EPOCH};
 
 use anyhow::Context;
-use sha2::{Digest, Sha256};
+use std::io::BufReader;
 
 use crate::config::Config;
 use crate::export::registry::{self, SharedSnapshot};
 use crate::export::server::{self, Shared};
-use crate::ingest::records::{decode_records, Columns};
+use crate::ingest::reader::{CappedLines, Hashing};
+use crate::ingest::records::{decode_records, Columns, Reject, RejectReason};
 use crate::ingest::watch::{self, Candidate};
-use crate::ingest::Format;
+use crate::ingest::{DecodeErrorKind, Format};
 use crate::window::{self, Batch, Kind, Snapshot, Store};
 
 /// A running daemon.
@@ -42,11 +43,6 @@ pub struct Running {
 
 fn now_ms() -> i64 {
     SystemTime::now().duration_since(UNIX_EPOCH).map_or(0, |d| d.as_millis() as i64)
-}
-
-fn hash_hex(bytes: &[u8]) -> String {
-    let d = Sha256::digest(bytes);
-    d.iter().map(|b| format!("{b:02x}")).collect()
 }
 
 struct Pipeline {
@@ -74,21 +70,15 @@ impl Pipeline {
             return Ok(false);
         }
         let model = &self.config.models[c.model];
-        let bytes = match std::fs::read(&c.path) {
-            Ok(b) => b,
+        let file = match std::fs::File::open(&c.path) {
+            Ok(f) => f,
             Err(e) => {
                 // Gone between listing and reading (renamed again, deleted): the next listing
                 // finds it under its new name, if any.
-                tracing::warn!(file = %c.path.display(), error = %e, "cannot read batch file; will retry");
+                tracing::warn!(file = %c.path.display(), error = %e, "cannot open batch file; will retry");
                 return Ok(false);
             }
         };
-        let hash = hash_hex(&bytes);
-        if self.store.has_file(&model.name, c.kind, &hash)? {
-            tracing::debug!(file = %c.path.display(), "content already taken");
-            self.settled.insert(c.path.clone(), (c.len, c.modified));
-            return Ok(false);
-        }
         let src = if c.kind == Kind::Prediction { &model.predictions } else { &model.labels };
         let format = src.format.or_else(|| Format::from_path(&c.path)).unwrap_or(Format::Csv);
         let label = c.path.display().to_string();
@@ -96,24 +86,62 @@ impl Pipeline {
         let mut records = Vec::new();
         let mut rejects = Vec::new();
         let started = Instant::now();
-        if let Err(e) = decode_records(
-            &bytes,
+        // One pass: the hash covers exactly the bytes decoded, and overlong lines are dropped
+        // as they stream past instead of being buffered.
+        let mut capped =
+            CappedLines::new(BufReader::with_capacity(1 << 16, Hashing::new(file)), self.config.max_row_bytes);
+        let decoded = decode_records(
+            &mut capped,
             format,
             &label,
             &columns,
             self.config.max_row_bytes,
             |r| records.push(r),
             |r| rejects.push(r),
-        ) {
-            // The whole file is unusable (no header, a configured column missing): it is
-            // recorded as taken with one malformed row, so it is not retried forever.
-            rejects.push(crate::ingest::records::Reject {
-                line: e.line.unwrap_or(1),
-                reason: crate::ingest::records::RejectReason::MalformedRow,
-                message: e.to_string(),
-            });
+        );
+        match decoded {
+            Ok(_) => {}
+            Err(e) if e.kind == DecodeErrorKind::MissingColumn => {
+                // No row of the file is usable: each data line is one rejected row, and the
+                // file is recorded as taken so that it is not retried forever.
+                let mut line = 1u64;
+                for l in std::io::BufRead::split(std::io::BufReader::new(&mut capped), b'\n') {
+                    let Ok(l) = l else { break };
+                    line += 1;
+                    if !l.iter().all(u8::is_ascii_whitespace) {
+                        rejects.push(Reject { line, reason: RejectReason::MissingColumn, message: e.to_string() });
+                    }
+                }
+            }
+            Err(e) if e.kind == DecodeErrorKind::Empty => {
+                tracing::warn!(file = %c.path.display(), "empty batch file: no header row, no rows");
+            }
+            Err(e) => {
+                // Retried when the file changes (size or mtime), not on every rescan.
+                tracing::warn!(file = %c.path.display(), error = %e, "read error; will retry when the file changes");
+                self.settled.insert(c.path.clone(), (c.len, c.modified));
+                return Ok(false);
+            }
         }
-        let batch = Batch { kind: c.kind, name: &c.name, hash: &hash, records: &records, rejects: &rejects };
+        for line in std::mem::take(&mut capped.too_long) {
+            let message = format!("{label}:{line}: row: longer than max_row_bytes ({})", self.config.max_row_bytes);
+            rejects.push(Reject { line, reason: RejectReason::RowTooLong, message });
+        }
+        let hash = match capped.into_inner().into_inner().finish() {
+            Ok(h) => h,
+            Err(e) => {
+                // Retried when the file changes (size or mtime), not on every rescan.
+                tracing::warn!(file = %c.path.display(), error = %e, "read error; will retry when the file changes");
+                self.settled.insert(c.path.clone(), (c.len, c.modified));
+                return Ok(false);
+            }
+        };
+        if self.store.has_file(&model.name, c.kind, &hash)? {
+            tracing::debug!(file = %c.path.display(), "content already taken");
+            self.settled.insert(c.path.clone(), (c.len, c.modified));
+            return Ok(false);
+        }
+        let batch = Batch { kind: c.kind, name: &label, hash: &hash, records: &records, rejects: &rejects };
         let out = self.store.ingest_file(model, &batch, now_ms())?;
         self.settled.insert(c.path.clone(), (c.len, c.modified));
         if out.already_taken {

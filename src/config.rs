@@ -29,6 +29,7 @@ struct RawConfig {
     state_dir: Option<Spanned<String>>,
     rescan_interval: Option<Spanned<String>>,
     max_row_bytes: Option<Spanned<u64>>,
+    future_tolerance: Option<Spanned<String>>,
     models: Spanned<Vec<RawModel>>,
 }
 
@@ -108,6 +109,8 @@ pub struct ModelConfig {
     pub confidence: Confidence,
     /// How long (event time, ms) a prediction waits for its label, and a label for its prediction.
     pub label_wait_ms: i64,
+    /// Rows whose event time is more than this (ms) ahead of the wall clock are rejected.
+    pub future_tolerance_ms: i64,
     pub windows: Vec<WindowConfig>,
     pub sla: Option<SlaConfig>,
 }
@@ -473,6 +476,7 @@ impl Checker {
             loss,
             confidence,
             label_wait_ms,
+            future_tolerance_ms: 86_400_000,
             windows,
             sla,
         })
@@ -546,6 +550,10 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
             1 << 20
         }
     };
+    let future_tolerance_ms = match &raw.future_tolerance {
+        None => 86_400_000,
+        Some(f) => c.duration_ms(f, "future_tolerance").unwrap_or(86_400_000),
+    };
     if raw.models.value.is_empty() {
         c.push(&raw.models, "models", "at least one model is needed");
     }
@@ -556,7 +564,7 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
             c.push(&m.name, &format!("models[{i}].name"), format!("duplicate model name {:?}", m.name.value));
         }
         if let Some(mc) = c.model(m, i) {
-            models.push(mc);
+            models.push(ModelConfig { future_tolerance_ms, ..mc });
         }
     }
     if !c.issues.is_empty() {
@@ -570,12 +578,13 @@ impl Config {
     /// The resolved settings, as `check-config` prints them.
     pub fn describe(&self) -> String {
         let mut s = format!(
-            "config: {}\nlisten: {}\nstate_dir: {}\nrescan_interval: {:?}\nmax_row_bytes: {}\n",
+            "config: {}\nlisten: {}\nstate_dir: {}\nrescan_interval: {:?}\nmax_row_bytes: {}\nfuture_tolerance: {}s\n",
             self.file.display(),
             self.listen,
             self.state_dir.display(),
             self.rescan_interval,
-            self.max_row_bytes
+            self.max_row_bytes,
+            self.models.first().map_or(86_400, |m| m.future_tolerance_ms / 1000)
         );
         for m in &self.models {
             s += &format!(

@@ -198,7 +198,9 @@ fn run_bound(a: &BoundArgs) -> anyhow::Result<()> {
 /// Logs go to standard error, human-readable or one JSON object a line; RUST_LOG filters.
 fn init_logs(format: &str) {
     let filter = tracing_subscriber::EnvFilter::try_from_default_env().unwrap_or_else(|_| "info".into());
-    let builder = tracing_subscriber::fmt().with_env_filter(filter).with_writer(io::stderr);
+    // Colour only on a terminal: logs piped to files or collectors stay plain text.
+    let ansi = std::io::IsTerminal::is_terminal(&io::stderr());
+    let builder = tracing_subscriber::fmt().with_env_filter(filter).with_writer(io::stderr).with_ansi(ansi);
     if format == "json" {
         builder.json().init();
     } else {

@@ -44,6 +44,20 @@ pub struct DecodeError {
     pub line: Option<u64>,
     pub column: Option<String>,
     pub reason: String,
+    pub kind: DecodeErrorKind,
+}
+
+/// What kind of problem a [`DecodeError`] is, for callers that count them.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum DecodeErrorKind {
+    /// One row or cell is bad; the rest of the file can be read.
+    Row,
+    /// A wanted column is not in the CSV header: no row of the file is usable.
+    MissingColumn,
+    /// No header row at all.
+    Empty,
+    /// Reading failed.
+    Io,
 }
 
 impl DecodeError {
@@ -54,14 +68,31 @@ impl DecodeError {
             line: Some(line),
             column: Some(column.to_string()),
             reason: reason.to_string(),
+            kind: DecodeErrorKind::Row,
         }
     }
     /// An error about a whole row.
     pub fn row(file: &str, line: u64, reason: impl fmt::Display) -> Self {
-        DecodeError { file: file.to_string(), line: Some(line), column: None, reason: reason.to_string() }
+        DecodeError {
+            file: file.to_string(),
+            line: Some(line),
+            column: None,
+            reason: reason.to_string(),
+            kind: DecodeErrorKind::Row,
+        }
     }
     fn file(file: &str, reason: impl fmt::Display) -> Self {
-        DecodeError { file: file.to_string(), line: None, column: None, reason: reason.to_string() }
+        DecodeError {
+            file: file.to_string(),
+            line: None,
+            column: None,
+            reason: reason.to_string(),
+            kind: DecodeErrorKind::Io,
+        }
+    }
+    fn with_kind(mut self, kind: DecodeErrorKind) -> Self {
+        self.kind = kind;
+        self
     }
 }
 
@@ -139,7 +170,7 @@ where
     let mut record = csv::ByteRecord::new();
     let has_header = rdr.read_byte_record(&mut record).map_err(|e| csv_error(file, e))?;
     if !has_header {
-        return Err(DecodeError::row(file, 1, "empty input: no header row"));
+        return Err(DecodeError::row(file, 1, "empty input: no header row").with_kind(DecodeErrorKind::Empty));
     }
     let header: Vec<String> = record
         .iter()
@@ -161,7 +192,8 @@ where
                     1,
                     c,
                     format!("not in the header (columns: {})", header.join(", ")),
-                ));
+                )
+                .with_kind(DecodeErrorKind::MissingColumn));
             }
         }
     }

@@ -4,7 +4,8 @@
 //! read (`riskbound bound`) or is counted and skipped (the daemon).
 
 pub mod decode;
+pub mod reader;
 pub mod records;
 pub mod watch;
 
-pub use decode::{for_each_row, DecodeError, Format, Row};
+pub use decode::{for_each_row, DecodeError, DecodeErrorKind, Format, Row};

@@ -29,11 +29,16 @@ pub enum RejectReason {
     ConflictingLabel,
     /// A label whose prediction waited longer than `label_wait` (already dropped as unlabelled).
     LateLabel,
+    /// A configured column is missing from the file's header: every row of the file.
+    MissingColumn,
+    /// An event time further ahead of the wall clock than `future_tolerance`: it would move
+    /// event time (and so every window and expiry) into the future.
+    FutureTimestamp,
 }
 
 impl RejectReason {
     /// Every reason, so that each counter series exists from the start.
-    pub const ALL: [RejectReason; 10] = [
+    pub const ALL: [RejectReason; 12] = [
         RejectReason::MissingValue,
         RejectReason::BadTimestamp,
         RejectReason::BadNumber,
@@ -44,6 +49,8 @@ impl RejectReason {
         RejectReason::DuplicateLabel,
         RejectReason::ConflictingLabel,
         RejectReason::LateLabel,
+        RejectReason::MissingColumn,
+        RejectReason::FutureTimestamp,
     ];
     /// True when rows of a prediction file (`labels == false`) or of a label file can be
     /// rejected for this reason; only those series are exported.
@@ -70,6 +77,8 @@ impl RejectReason {
             RejectReason::DuplicateLabel => "duplicate_label",
             RejectReason::ConflictingLabel => "conflicting_label",
             RejectReason::LateLabel => "late_label",
+            RejectReason::MissingColumn => "missing_column",
+            RejectReason::FutureTimestamp => "future_timestamp",
         }
     }
     /// Parses a label value.
@@ -125,8 +134,8 @@ pub struct Columns<'a> {
 /// Decodes every row of one file, calling `on_record` for good rows and `on_reject` for bad
 /// ones. A file-level problem (a configured column missing from the CSV header, an empty file)
 /// is returned as an error: the file is then recorded with all of its rows unusable.
-pub fn decode_records(
-    bytes: &[u8],
+pub fn decode_records<R: std::io::Read>(
+    src: R,
     format: Format,
     file_label: &str,
     columns: &Columns<'_>,
@@ -135,7 +144,7 @@ pub fn decode_records(
     mut on_reject: impl FnMut(Reject),
 ) -> Result<u64, DecodeError> {
     let names = [columns.id, columns.time, columns.value];
-    for_each_row(bytes, format, file_label, &names, |row| {
+    for_each_row(src, format, file_label, &names, |row| {
         let row = match row {
             Ok(r) => r,
             Err(e) => {
@@ -216,7 +225,7 @@ mod tests {
         let mut good = Vec::new();
         let mut bad = Vec::new();
         let cols = Columns { id: "rid", time: "ts", value: "p" };
-        decode_records(body, Format::Csv, "f.csv", &cols, 1 << 20, |r| good.push(r), |r| bad.push(r)).unwrap();
+        decode_records(&body[..], Format::Csv, "f.csv", &cols, 1 << 20, |r| good.push(r), |r| bad.push(r)).unwrap();
         assert_eq!(good.iter().map(|r| r.id.as_str()).collect::<Vec<_>>(), ["a", "d"]);
         let reasons: Vec<_> = bad.iter().map(|r| (r.line, r.reason)).collect();
         assert_eq!(

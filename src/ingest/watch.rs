@@ -63,8 +63,11 @@ pub fn scan(models: &[ModelConfig]) -> Vec<Candidate> {
 
 /// Watches every input directory; each event sends a wake-up (the receiver rescans).
 pub fn watch(models: &[ModelConfig], wake: Sender<()>) -> notify::Result<RecommendedWatcher> {
-    let mut w = notify::recommended_watcher(move |_res: notify::Result<notify::Event>| {
-        let _ = wake.send(());
+    let mut w = notify::recommended_watcher(move |res: notify::Result<notify::Event>| {
+        // Our own reads raise access events; waking on them would rescan in a loop.
+        if !matches!(res, Ok(notify::Event { kind: notify::EventKind::Access(_), .. })) {
+            let _ = wake.send(());
+        }
     })?;
     let mut dirs: Vec<&PathBuf> = models.iter().flat_map(|m| [&m.predictions.dir, &m.labels.dir]).collect();
     dirs.sort();

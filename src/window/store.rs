@@ -237,6 +237,14 @@ impl Store {
             reject(&mut out, r.clone());
         }
         for rec in records {
+            if rec.time_ms > now_ms.saturating_add(model.future_tolerance_ms) {
+                let message = format!(
+                    "{name}:{}: time {} ms is ahead of the clock by more than future_tolerance",
+                    rec.line, rec.time_ms
+                );
+                reject(&mut out, Reject { line: rec.line, reason: RejectReason::FutureTimestamp, message });
+                continue;
+            }
             if let Err(reason) = check_value(&model.loss, kind, &rec.value) {
                 let message = format!("{name}:{}: value {:?}: {reason}", rec.line, rec.value);
                 reject(&mut out, Reject { line: rec.line, reason, message });

@@ -49,21 +49,26 @@ pub fn bin() -> &'static str {
 pub struct Daemon {
     pub child: Child,
     pub port: u16,
+    /// The daemon's standard error (its log).
+    pub log: PathBuf,
 }
 
 impl Daemon {
     /// Starts `riskbound run --config CONFIG` and waits until /readyz answers 200.
     pub fn start(config: &Path, port: u16) -> Daemon {
-        let log = std::fs::File::create(config.with_extension(format!("log.{}", Instant::now().elapsed().as_nanos())))
-            .unwrap();
+        static STARTS: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(0);
+        let n = STARTS.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
+        let log_path = config.with_extension(format!("log.{n}"));
+        let log = std::fs::File::create(&log_path).unwrap();
         let child = Command::new(bin())
             .args(["run", "--config", config.to_str().unwrap()])
             .env("RUST_LOG", "info")
+            .env("NO_COLOR", "1")
             .stdout(Stdio::null())
             .stderr(log)
             .spawn()
             .unwrap();
-        let d = Daemon { child, port };
+        let d = Daemon { child, port, log: log_path };
         d.wait_until(Duration::from_secs(20), |d| d.get("/readyz").map(|(s, _)| s == 200).unwrap_or(false));
         d
     }
@@ -97,6 +102,23 @@ impl Daemon {
         self.wait_until(Duration::from_secs(20), |d| {
             d.metrics().get("riskbound_files_ingested_total", &[("model", model), ("kind", kind)]) >= Some(n)
         });
+    }
+
+    /// The log so far.
+    pub fn log_text(&self) -> String {
+        std::fs::read_to_string(&self.log).unwrap_or_default()
+    }
+
+    /// Peak resident memory of the daemon, in KiB (VmHWM).
+    pub fn peak_rss_kib(&self) -> u64 {
+        let status = std::fs::read_to_string(format!("/proc/{}/status", self.child.id())).unwrap();
+        status
+            .lines()
+            .find(|l| l.starts_with("VmHWM"))
+            .and_then(|l| l.split_whitespace().nth(1))
+            .unwrap()
+            .parse()
+            .unwrap()
     }
 
     pub fn kill9(mut self) {
