@@ -104,10 +104,9 @@ impl Pipeline {
             Err(e) if e.kind == DecodeErrorKind::MissingColumn => {
                 // No row of the file is usable: each data line is one rejected row, and the
                 // file is recorded as taken so that it is not retried forever.
-                let mut line = 1u64;
-                for l in std::io::BufRead::split(std::io::BufReader::new(&mut capped), b'\n') {
+                let rest = std::io::BufRead::split(std::io::BufReader::new(&mut capped), b'\n');
+                for (line, l) in (2u64..).zip(rest) {
                     let Ok(l) = l else { break };
-                    line += 1;
                     if !l.iter().all(u8::is_ascii_whitespace) {
                         rejects.push(Reject { line, reason: RejectReason::MissingColumn, message: e.to_string() });
                     }
