@@ -66,8 +66,14 @@ impl Pipeline {
 
     /// Takes one candidate file if it is new. Returns true when it changed the state.
     fn take(&mut self, c: &Candidate) -> anyhow::Result<bool> {
-        if self.settled.get(&c.path) == Some(&(c.len, c.modified)) {
-            return Ok(false);
+        match self.settled.get(&c.path) {
+            Some(meta) if *meta == (c.len, c.modified) => return Ok(false),
+            Some(_) => {
+                // Rewritten, truncated or replaced under the same name: its content is read
+                // again; content taken before adds nothing, rows seen before are duplicates.
+                tracing::warn!(file = %c.path.display(), "batch file changed after it was taken; reading it again");
+            }
+            None => {}
         }
         let model = &self.config.models[c.model];
         let file = match std::fs::File::open(&c.path) {

@@ -494,16 +494,18 @@ fn parse_issue(e: &serde_saphyr::Error) -> ConfigIssue {
         Some(i) if text.starts_with("line ") => &text[i + 2..],
         _ => text,
     };
-    let key = message
-        .split('`')
-        .nth(1)
-        .filter(|_| {
-            message.starts_with("unknown field")
-                || message.starts_with("missing field")
-                || message.starts_with("duplicate")
-        })
-        .unwrap_or("(yaml)")
-        .to_string();
+    // The position is already in the prefix; drop the parser's repetition of it.
+    let message = message.rsplit_once(" at line ").map_or(message, |(m, _)| m);
+    let key = if let Some(rest) = message.strip_prefix("duplicate mapping key: ") {
+        rest.split(',').next().unwrap_or("(yaml)").trim().to_string()
+    } else {
+        message
+            .split('`')
+            .nth(1)
+            .filter(|_| message.starts_with("unknown field") || message.starts_with("missing field"))
+            .unwrap_or("(yaml)")
+            .to_string()
+    };
     ConfigIssue { line, column, key, reason: message.to_string() }
 }
 

@@ -1,0 +1,170 @@
+//! Crash loop: a generator with a ground-truth oracle writes prediction and label batches while
+//! the daemon is killed with SIGKILL at random moments (mid-read, mid-transaction, while files
+//! are being renamed into place, during scrapes) and restarted. At the end every window's n,
+//! error count and loss sum must equal the oracle's: nothing lost, nothing counted twice.
+//!
+//! Kills: `RISKBOUND_CRASH_KILLS` (default 100, what CI runs); the long run is
+//! `RISKBOUND_CRASH_KILLS=10000 cargo test --release --test crash_loop -- --nocapture`.
+
+mod common;
+
+use std::collections::BTreeMap;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Arc;
+use std::time::Duration;
+
+use common::{Daemon, Metrics, TempDir};
+use rand::rngs::Xoshiro256PlusPlus;
+use rand::{RngExt, SeedableRng};
+
+const T: i64 = 1_790_000_000;
+const RECENT: usize = 300;
+
+fn config(dir: &TempDir, port: u16) -> std::path::PathBuf {
+    let text = format!(
+        "listen: \"127.0.0.1:{port}\"
+state_dir: state
+rescan_interval: 100ms
+models:
+  - name: crash
+    predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: id, time: t, prediction: p }} }}
+    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: id, time: t, label: y }} }}
+    label_wait: 30d
+    windows:
+      - {{ name: all, last: 100000000 }}
+      - {{ name: recent, last: {RECENT} }}
+"
+    );
+    let p = dir.path("riskbound.yaml");
+    std::fs::write(&p, text).unwrap();
+    p
+}
+
+/// The batches to write, in order, and the oracle's (t_pred, loss) of every labelled id.
+fn scenario(seed: u64, batches: usize, rows: usize) -> (Vec<(String, String)>, BTreeMap<String, (i64, f64)>) {
+    let mut rng = Xoshiro256PlusPlus::seed_from_u64(seed);
+    let mut files = Vec::new();
+    let mut oracle = BTreeMap::new();
+    let mut waiting: Vec<(String, i64, &'static str)> = Vec::new();
+    let mut next = 0usize;
+    for b in 0..batches {
+        let mut pred = String::from("id,t,p\n");
+        for _ in 0..rows {
+            let id = format!("q{next:07}");
+            let t = T + next as i64; // unique prediction times: the recent window is exact
+            next += 1;
+            let p = if rng.random::<f64>() < 0.3 { "late" } else { "on-time" };
+            pred += &format!("{id},{t},{p}\n");
+            waiting.push((id, t, p));
+        }
+        files.push((format!("pred-{b:05}.csv"), pred));
+        // Label a random part of what waits; labels come in shuffled order.
+        let mut label = String::from("id,t,y\n");
+        let mut keep = Vec::new();
+        for (id, t, p) in waiting.drain(..) {
+            if rng.random::<f64>() < 0.6 {
+                let wrong = rng.random::<f64>() < 0.12;
+                let y = if wrong {
+                    if p == "late" {
+                        "on-time"
+                    } else {
+                        "late"
+                    }
+                } else {
+                    p
+                };
+                label += &format!("{id},{},{y}\n", t + 3600);
+                oracle.insert(id, (t, f64::from(u8::from(wrong))));
+            } else {
+                keep.push((id, t, p));
+            }
+        }
+        waiting = keep;
+        files.push((format!("label-{b:05}.csv"), label));
+    }
+    (files, oracle)
+}
+
+fn check_against_oracle(m: &Metrics, oracle: &BTreeMap<String, (i64, f64)>) {
+    let all_n = oracle.len() as f64;
+    let all_err: f64 = oracle.values().map(|v| v.1).sum();
+    let mut by_time: Vec<(i64, f64)> = oracle.values().copied().collect();
+    by_time.sort_by_key(|v| std::cmp::Reverse(v.0));
+    let recent: Vec<f64> = by_time.iter().take(RECENT).map(|v| v.1).collect();
+    let w = |name: &str, win: &str| m.get(name, &[("model", "crash"), ("window", win)]).unwrap();
+    assert_eq!(w("riskbound_window_samples", "all"), all_n, "n of window all");
+    assert_eq!((w("riskbound_risk_observed", "all") * all_n).round(), all_err, "errors (= loss sum) of window all");
+    assert_eq!(w("riskbound_window_samples", "recent"), recent.len() as f64, "n of window recent");
+    let recent_err: f64 = recent.iter().sum();
+    assert_eq!(
+        (w("riskbound_risk_observed", "recent") * recent.len() as f64).round(),
+        recent_err,
+        "errors of window recent"
+    );
+    assert_eq!(m.get("riskbound_samples_labelled_total", &[("model", "crash")]), Some(all_n));
+    let rejected: f64 = m.0.iter().filter(|((n, _), _)| n == "riskbound_rows_rejected_total").map(|(_, v)| v).sum();
+    assert_eq!(rejected, 0.0, "a re-read file would show up as duplicate rows");
+}
+
+#[test]
+fn sigkill_at_random_moments_loses_and_duplicates_nothing() {
+    let kills: usize = std::env::var("RISKBOUND_CRASH_KILLS").ok().and_then(|v| v.parse().ok()).unwrap_or(100);
+    let dir = TempDir::new("crash");
+    let port = common::free_port();
+    let cfg = config(&dir, port);
+    // Enough files that every kill has some left to land between, each large enough that
+    // kills often fall inside a read or a transaction.
+    let batches = (kills * 3 / 2).max(40);
+    let (files, oracle) = scenario(7, batches, 400);
+    let mut rng = Xoshiro256PlusPlus::seed_from_u64(99);
+    let mut written = 0usize;
+    let mut written_rows = 0usize;
+    let mut behind = 0usize; // restarts that found written rows not yet taken: the kill cut work
+    for k in 0..kills {
+        let d = Daemon::start(&cfg, port);
+        // After a restart nothing may exceed what was written: no double counting, ever.
+        let m = d.metrics();
+        let taken = m.get("riskbound_rows_ingested_total", &[("model", "crash"), ("kind", "prediction")]).unwrap()
+            + m.get("riskbound_rows_ingested_total", &[("model", "crash"), ("kind", "label")]).unwrap();
+        assert!(taken <= written_rows as f64, "kill {k}: {taken} rows taken of {written_rows} written");
+        behind += usize::from(taken < written_rows as f64);
+        // A scraper during the whole life of this process.
+        let stop = Arc::new(AtomicBool::new(false));
+        let scraper = {
+            let stop = stop.clone();
+            std::thread::spawn(move || {
+                while !stop.load(Ordering::SeqCst) {
+                    let _ = common::http(port, "GET", "/metrics");
+                }
+            })
+        };
+        let burst = rng.random_range(1..4usize);
+        for _ in 0..burst {
+            if written < files.len() {
+                let (name, body) = &files[written];
+                written += 1;
+                written_rows += body.lines().count() - 1;
+                dir.drop_file(name, body);
+            }
+        }
+        std::thread::sleep(Duration::from_micros(rng.random_range(0..40_000u64)));
+        d.kill9();
+        stop.store(true, Ordering::SeqCst);
+        scraper.join().unwrap();
+    }
+    for (name, body) in &files[written..] {
+        dir.drop_file(name, body);
+    }
+    let d = Daemon::start(&cfg, port);
+    d.wait_until(Duration::from_secs(60), |d| {
+        d.metrics().get("riskbound_files_ingested_total", &[("model", "crash"), ("kind", "label")])
+            == Some(batches as f64)
+    });
+    d.wait_files("crash", "prediction", batches as f64);
+    check_against_oracle(&d.metrics(), &oracle);
+    eprintln!(
+        "crash loop: {kills} kills ({behind} cut work in progress), {} files, {} labelled samples, all counts equal to the oracle",
+        files.len(),
+        oracle.len()
+    );
+}
