@@ -40,8 +40,13 @@ models:
     p
 }
 
+/// Batch files to write, in order: (name, content).
+type Files = Vec<(String, String)>;
+/// The oracle: every labelled id with its prediction time and loss.
+type Oracle = BTreeMap<String, (i64, f64)>;
+
 /// The batches to write, in order, and the oracle's (t_pred, loss) of every labelled id.
-fn scenario(seed: u64, batches: usize, rows: usize) -> (Vec<(String, String)>, BTreeMap<String, (i64, f64)>) {
+fn scenario(seed: u64, batches: usize, rows: usize) -> (Files, Oracle) {
     let mut rng = Xoshiro256PlusPlus::seed_from_u64(seed);
     let mut files = Vec::new();
     let mut oracle = BTreeMap::new();
@@ -85,7 +90,7 @@ fn scenario(seed: u64, batches: usize, rows: usize) -> (Vec<(String, String)>, B
     (files, oracle)
 }
 
-fn check_against_oracle(m: &Metrics, oracle: &BTreeMap<String, (i64, f64)>) {
+fn check_against_oracle(m: &Metrics, oracle: &Oracle) {
     let all_n = oracle.len() as f64;
     let all_err: f64 = oracle.values().map(|v| v.1).sum();
     let mut by_time: Vec<(i64, f64)> = oracle.values().copied().collect();
