@@ -17,13 +17,13 @@ use anyhow::Context;
 use std::io::BufReader;
 
 use crate::config::Config;
-use crate::export::registry::{self, SharedSnapshot};
+use crate::export::registry::{self, Health, SharedSnapshot};
 use crate::export::server::{self, Shared};
 use crate::ingest::reader::{CappedLines, Hashing};
 use crate::ingest::records::{decode_records, Columns, Reject, RejectReason};
 use crate::ingest::watch::{self, Candidate};
 use crate::ingest::{DecodeErrorKind, Format};
-use crate::window::{self, Batch, Kind, Snapshot, Store};
+use crate::window::{self, Batch, Kind, Snapshot, Store, StoreError};
 
 /// A running daemon.
 pub struct Running {
@@ -49,6 +49,8 @@ struct Pipeline {
     config: Config,
     store: Store,
     snapshot: SharedSnapshot,
+    shared: Arc<Shared>,
+    health: Arc<Health>,
     /// Files already settled this run, by path, with the size and mtime they had: unchanged
     /// files are not read again on every rescan.
     settled: HashMap<PathBuf, (u64, Option<SystemTime>)>,
@@ -170,13 +172,35 @@ impl Pipeline {
         Ok(true)
     }
 
+    /// One pass over every input folder. A commit the database refuses (disk full, read-only)
+    /// ends the round: the daemon turns not ready, counts it, logs it once, keeps its committed
+    /// state, and retries the same file on the next round until the volume accepts writes.
     fn round(&mut self, stop: &AtomicBool) -> anyhow::Result<bool> {
         let mut changed = false;
         for c in watch::scan(&self.config.models) {
             if stop.load(Ordering::SeqCst) {
                 break;
             }
-            changed |= self.take(&c)?;
+            match self.take(&c) {
+                Ok(took) => {
+                    changed |= took;
+                    if took && self.health.state_unwritable.swap(false, Ordering::SeqCst) {
+                        self.shared.ready.store(true, Ordering::SeqCst);
+                        tracing::info!("state database accepts writes again; ready, resuming ingest");
+                    }
+                }
+                Err(e) => {
+                    let Some(store_error) = e.downcast_ref::<StoreError>() else { return Err(e) };
+                    self.health.state_write_failures.fetch_add(1, Ordering::SeqCst);
+                    if !self.health.state_unwritable.swap(true, Ordering::SeqCst) {
+                        self.shared.ready.store(false, Ordering::SeqCst);
+                        let what =
+                            if store_error.is_disk() { "state volume refuses writes" } else { "state database error" };
+                        tracing::error!(file = %c.path.display(), error = %store_error, "{what}: not ready; committed state kept, retrying");
+                    }
+                    break;
+                }
+            }
         }
         Ok(changed)
     }
@@ -196,7 +220,13 @@ impl Pipeline {
                 self.publish()?;
             }
             rounds.fetch_add(1, Ordering::SeqCst);
-            match wake.recv_timeout(rescan) {
+            // While the state refuses writes, retry every second rather than every rescan.
+            let wait = if self.health.state_unwritable.load(Ordering::SeqCst) {
+                rescan.min(Duration::from_secs(1))
+            } else {
+                rescan
+            };
+            match wake.recv_timeout(wait) {
                 Ok(()) => {
                     // Let a burst of events (a writer dropping many files) settle into one round.
                     std::thread::sleep(Duration::from_millis(20));
@@ -224,7 +254,11 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     let addr = listener.local_addr()?;
 
     let snapshot: SharedSnapshot = Arc::new(RwLock::new(Arc::new(Snapshot::default())));
-    let shared = Arc::new(Shared { registry: registry::registry(snapshot.clone()), ready: AtomicBool::new(false) });
+    let health = Arc::new(Health::default());
+    let shared = Arc::new(Shared {
+        registry: registry::registry(snapshot.clone(), health.clone()),
+        ready: AtomicBool::new(false),
+    });
     let server_stop = Arc::new(tokio::sync::Notify::new());
     let stop_signal = server_stop.clone();
     let app = server::router(shared.clone());
@@ -234,7 +268,14 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     tracing::info!(%addr, "serving /metrics, /healthz, /readyz");
 
     let store = Store::open(&config.state_dir)?;
-    let pipeline = Pipeline { config: config.clone(), store, snapshot: snapshot.clone(), settled: HashMap::new() };
+    let pipeline = Pipeline {
+        config: config.clone(),
+        store,
+        snapshot: snapshot.clone(),
+        shared: shared.clone(),
+        health,
+        settled: HashMap::new(),
+    };
     // Resume: the snapshot of the committed state is published before anything new is read,
     // and only then is the daemon ready.
     pipeline.publish()?;

@@ -19,6 +19,15 @@ use crate::window::{Kind, Snapshot};
 /// The shared snapshot the pipeline publishes and scrapes read.
 pub type SharedSnapshot = Arc<RwLock<Arc<Snapshot>>>;
 
+/// The daemon's own health, updated by the pipeline as it happens (not per snapshot).
+#[derive(Debug, Default)]
+pub struct Health {
+    /// Commits refused by the state database (disk full, read-only, I/O errors).
+    pub state_write_failures: std::sync::atomic::AtomicU64,
+    /// 1 while the last commit attempt failed, 0 once commits succeed again.
+    pub state_unwritable: std::sync::atomic::AtomicBool,
+}
+
 /// Metric names (without the `_total` the encoder adds to counters), for tests and docs.
 pub mod names {
     pub const UPPER: &str = "riskbound_risk_upper_bound";
@@ -39,6 +48,8 @@ pub mod names {
     pub const DELAY: &str = "riskbound_label_delay_seconds";
     pub const LAST_INGEST: &str = "riskbound_last_ingest_timestamp_seconds";
     pub const BUILD_INFO: &str = "riskbound_build_info";
+    pub const WRITE_FAILURES: &str = "riskbound_state_write_failures";
+    pub const UNWRITABLE: &str = "riskbound_state_unwritable";
 }
 
 type Labels = Vec<(&'static str, String)>;
@@ -46,6 +57,7 @@ type Labels = Vec<(&'static str, String)>;
 #[derive(Debug)]
 struct SnapshotCollector {
     snapshot: SharedSnapshot,
+    health: Arc<Health>,
 }
 
 fn family<M: EncodeMetric>(
@@ -230,14 +242,27 @@ impl Collector for SnapshotCollector {
             "riskbound build",
             [(vec![("version", env!("CARGO_PKG_VERSION").to_string())], 1.0)],
         )?;
+        use std::sync::atomic::Ordering::SeqCst;
+        counters(
+            e,
+            names::WRITE_FAILURES,
+            "Batch-file commits the state database refused (disk full, read-only, I/O error); each is retried",
+            [(Labels::new(), self.health.state_write_failures.load(SeqCst))],
+        )?;
+        gauges(
+            e,
+            names::UNWRITABLE,
+            "1 while the state database refuses commits (the daemon is then not ready), else 0",
+            [(Labels::new(), f64::from(u8::from(self.health.state_unwritable.load(SeqCst))))],
+        )?;
         Ok(())
     }
 }
 
 /// A registry whose every scrape encodes the current snapshot.
-pub fn registry(snapshot: SharedSnapshot) -> Registry {
+pub fn registry(snapshot: SharedSnapshot, health: Arc<Health>) -> Registry {
     let mut r = Registry::default();
-    r.register_collector(Box::new(SnapshotCollector { snapshot }));
+    r.register_collector(Box::new(SnapshotCollector { snapshot, health }));
     r
 }
 
