@@ -262,8 +262,14 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     let server_stop = Arc::new(tokio::sync::Notify::new());
     let stop_signal = server_stop.clone();
     let app = server::router(shared.clone());
+    let limits = server::Limits {
+        max_connections: config.max_connections,
+        header_read_timeout: config.header_read_timeout,
+        connection_lifetime: Duration::from_secs(60),
+    };
     let server = runtime.spawn(async move {
-        axum::serve(listener, app).with_graceful_shutdown(async move { stop_signal.notified().await }).await
+        server::serve(listener, app, limits, stop_signal).await;
+        Ok(())
     });
     tracing::info!(%addr, "serving /metrics, /healthz, /readyz");
 

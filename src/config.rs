@@ -30,6 +30,8 @@ struct RawConfig {
     rescan_interval: Option<Spanned<String>>,
     max_row_bytes: Option<Spanned<u64>>,
     future_tolerance: Option<Spanned<String>>,
+    max_connections: Option<Spanned<i64>>,
+    header_read_timeout: Option<Spanned<String>>,
     models: Spanned<Vec<RawModel>>,
 }
 
@@ -96,6 +98,10 @@ pub struct Config {
     pub rescan_interval: Duration,
     /// Longest accepted row; longer rows are rejected (bounds memory on hostile input).
     pub max_row_bytes: u64,
+    /// Open HTTP connections at most.
+    pub max_connections: usize,
+    /// Time allowed for an HTTP request's headers to arrive.
+    pub header_read_timeout: Duration,
     pub models: Vec<ModelConfig>,
 }
 
@@ -552,6 +558,21 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
             1 << 20
         }
     };
+    let max_connections = match &raw.max_connections {
+        None => 64,
+        Some(m) if (1..=65_536).contains(&m.value) => m.value as usize,
+        Some(m) => {
+            c.push(m, "max_connections", format!("must lie in [1, 65536], got {}", m.value));
+            64
+        }
+    };
+    let header_read_timeout = match &raw.header_read_timeout {
+        None => Duration::from_secs(10),
+        Some(h) => parse_duration(&h.value).unwrap_or_else(|e| {
+            c.push(h, "header_read_timeout", e);
+            Duration::from_secs(10)
+        }),
+    };
     let future_tolerance_ms = match &raw.future_tolerance {
         None => 86_400_000,
         Some(f) => c.duration_ms(f, "future_tolerance").unwrap_or(86_400_000),
@@ -573,7 +594,16 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
         c.issues.sort_by_key(|p| (p.line, p.column));
         return Err(ConfigError { file, issues: c.issues });
     }
-    Ok(Config { file: path.to_path_buf(), listen, state_dir, rescan_interval, max_row_bytes, models })
+    Ok(Config {
+        file: path.to_path_buf(),
+        listen,
+        state_dir,
+        rescan_interval,
+        max_row_bytes,
+        max_connections,
+        header_read_timeout,
+        models,
+    })
 }
 
 impl Config {

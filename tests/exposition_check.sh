@@ -33,6 +33,11 @@ missing = need - names
 assert not missing, f"missing families: {missing}"
 print(f"prometheus_client parsed {len(fams)} families, {sum(len(f.samples) for f in fams)} samples")
 PY
+# Label values with quotes, backslashes and newlines, as rendered by the registry's unit test.
+if [ -f target/awkward-labels.prom ]; then
+  promtool check metrics < target/awkward-labels.prom
+  python3 -c 'import sys; from prometheus_client.parser import text_string_to_metric_families as p; list(p(open(sys.argv[1]).read())); print("awkward label values: parsed")' target/awkward-labels.prom
+fi
 kill -TERM "$pid"
 wait "$pid"
 echo "exposition check: ok"

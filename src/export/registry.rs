@@ -272,3 +272,34 @@ pub fn render(registry: &Registry) -> String {
     prometheus_client::encoding::prometheus_text::encode(&mut out, registry).expect("writing to a String cannot fail");
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::window::{ModelSnapshot, WindowSnapshot};
+
+    /// Config validation keeps names to [a-z0-9_-], but label values with quotes, backslashes
+    /// and newlines must still come out escaped as the text format requires (Prometheus
+    /// exposition formats: `\\`, `\"`, `\n`).
+    #[test]
+    fn awkward_label_values_are_escaped() {
+        let model = ModelSnapshot {
+            name: "a\"b\\c\nd".into(),
+            confidence: 0.95,
+            loss_max: 1.0,
+            sla: None,
+            windows: vec![WindowSnapshot { name: "w\"1".into(), n: 3, mean: 0.5, bounds: vec![], state: None }],
+            counters: Default::default(),
+            awaiting: 0,
+            label_coverage: None,
+            last_commit_ms: None,
+        };
+        let snap: SharedSnapshot = Arc::new(RwLock::new(Arc::new(Snapshot { models: vec![model] })));
+        let text = render(&registry(snap, Arc::new(Health::default())));
+        assert!(text.contains(r#"riskbound_window_samples{model="a\"b\\c\nd",window="w\"1"} 3"#), "{text}");
+        assert!(!text.lines().any(|l| l == "d\",window=\"w\\\"1\"} 3"), "no raw newline inside a label");
+        // tests/exposition_check.sh runs promtool on this file too.
+        let out = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("target/awkward-labels.prom");
+        std::fs::write(out, &text).unwrap();
+    }
+}

@@ -1,9 +1,14 @@
 //! The HTTP surface: GET /metrics (Prometheus text format 0.0.4), GET /healthz (the process
 //! runs), GET /readyz (state resumed from the database and the state volume writable; 503
 //! otherwise). Every other path is 404, and other methods on these paths 405.
+//!
+//! The accept loop is our own, on hyper, so that a slow or hostile client cannot hold the
+//! server: request headers must arrive within a timeout, a connection lives at most a bounded
+//! time, and past a cap on open connections new ones are closed at once.
 
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
+use std::time::Duration;
 
 use axum::extract::State;
 use axum::http::{header, StatusCode};
@@ -44,4 +49,42 @@ pub fn router(shared: Arc<Shared>) -> Router {
         .route("/readyz", get(readyz))
         .fallback(|| async { (StatusCode::NOT_FOUND, "not found\n") })
         .with_state(shared)
+}
+
+/// Limits on the HTTP surface.
+#[derive(Clone, Copy, Debug)]
+pub struct Limits {
+    /// Open connections at most; more are closed on accept.
+    pub max_connections: usize,
+    /// Time allowed for a request's headers to arrive.
+    pub header_read_timeout: Duration,
+    /// Longest life of one connection (keep-alive included).
+    pub connection_lifetime: Duration,
+}
+
+/// Serves `router` on `listener` until `stop` is notified.
+pub async fn serve(listener: tokio::net::TcpListener, router: Router, limits: Limits, stop: Arc<tokio::sync::Notify>) {
+    let permits = Arc::new(tokio::sync::Semaphore::new(limits.max_connections));
+    loop {
+        let accepted = tokio::select! {
+            _ = stop.notified() => break,
+            a = listener.accept() => a,
+        };
+        let Ok((stream, _peer)) = accepted else { continue };
+        let Ok(permit) = permits.clone().try_acquire_owned() else {
+            tracing::debug!("connection limit reached; closing a new connection");
+            drop(stream);
+            continue;
+        };
+        let service = hyper_util::service::TowerToHyperService::new(router.clone());
+        tokio::spawn(async move {
+            let io = hyper_util::rt::TokioIo::new(stream);
+            let conn = hyper::server::conn::http1::Builder::new()
+                .timer(hyper_util::rt::TokioTimer::new())
+                .header_read_timeout(limits.header_read_timeout)
+                .serve_connection(io, service);
+            let _ = tokio::time::timeout(limits.connection_lifetime, conn).await;
+            drop(permit);
+        });
+    }
 }
