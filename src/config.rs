@@ -512,6 +512,8 @@ fn parse_issue(e: &serde_saphyr::Error) -> ConfigIssue {
             .unwrap_or("(yaml)")
             .to_string()
     };
+    // Found by fuzzing: a key written as '' gives an empty name, which would read as no key.
+    let key = if key.is_empty() { "\"\"".to_string() } else { key };
     ConfigIssue { line, column, key, reason: message.to_string() }
 }
 

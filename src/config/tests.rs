@@ -138,3 +138,10 @@ fn durations() {
     assert!(parse_duration("10").is_err());
     assert!(parse_duration("-3s").is_err());
 }
+
+#[test]
+fn r_fuzz_config_an_empty_key_is_named() {
+    // fuzz/artifacts/config crash-2107d4…: `'': ...` at the top level.
+    let (_, _, key, reason) = one("'':\t\u{0}\u{0}''\n");
+    assert_eq!(key, "\"\"", "{reason}");
+}

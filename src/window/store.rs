@@ -187,6 +187,13 @@ impl Store {
         Ok(Store { conn })
     }
 
+    /// A database in memory, for tests and fuzzing: the same schema and logic, no durability.
+    pub fn open_in_memory() -> Result<Store, StoreError> {
+        let conn = Connection::open_in_memory()?;
+        conn.execute_batch(SCHEMA)?;
+        Ok(Store { conn })
+    }
+
     /// True when this content was already taken for (model, kind).
     pub fn has_file(&self, model: &str, kind: Kind, hash: &str) -> Result<bool, StoreError> {
         Ok(self

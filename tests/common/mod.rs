@@ -2,6 +2,8 @@
 //! the daemon as a child process on a free loopback port, scrapes and metric lookups.
 #![allow(dead_code)] // each test binary uses its own subset
 
+pub mod join_model;
+
 use std::collections::BTreeMap;
 use std::io::{Read, Write};
 use std::net::TcpStream;

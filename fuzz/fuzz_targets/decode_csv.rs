@@ -1,0 +1,13 @@
+//! The CSV row decoder and record typing on arbitrary bytes, through the same length-capped
+//! reader the daemon uses: no panic, every row either a record or a located reject.
+#![no_main]
+use libfuzzer_sys::fuzz_target;
+use riskbound::ingest::reader::CappedLines;
+use riskbound::ingest::records::{decode_records, Columns};
+use riskbound::ingest::Format;
+
+fuzz_target!(|data: &[u8]| {
+    let cols = Columns { id: "id", time: "t", value: "p" };
+    let capped = CappedLines::new(data, 4096);
+    let _ = decode_records(capped, Format::Csv, "fuzz.csv", &cols, 4096, |r| assert!(r.line >= 2), |r| assert!(!r.message.is_empty()));
+});
