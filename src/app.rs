@@ -78,6 +78,14 @@ impl Pipeline {
             None => {}
         }
         let model = &self.config.models[c.model];
+        let label = c.path.display().to_string();
+        let mtime_ns = c.modified.and_then(|t| t.duration_since(UNIX_EPOCH).ok()).map(|d| d.as_nanos() as i64);
+        if let Some(ns) = mtime_ns {
+            if self.store.has_file_meta(&model.name, c.kind, &label, c.len as i64, ns)? {
+                self.settled.insert(c.path.clone(), (c.len, c.modified));
+                return Ok(false);
+            }
+        }
         let file = match std::fs::File::open(&c.path) {
             Ok(f) => f,
             Err(e) => {
@@ -89,7 +97,6 @@ impl Pipeline {
         };
         let src = if c.kind == Kind::Prediction { &model.predictions } else { &model.labels };
         let format = src.format.or_else(|| Format::from_path(&c.path)).unwrap_or(Format::Csv);
-        let label = c.path.display().to_string();
         let columns = Columns { id: &src.id_column, time: &src.time_column, value: &src.value_column };
         let mut records = Vec::new();
         let mut rejects = Vec::new();
@@ -148,7 +155,15 @@ impl Pipeline {
             self.settled.insert(c.path.clone(), (c.len, c.modified));
             return Ok(false);
         }
-        let batch = Batch { kind: c.kind, name: &label, hash: &hash, records: &records, rejects: &rejects };
+        let batch = Batch {
+            kind: c.kind,
+            name: &label,
+            hash: &hash,
+            records: &records,
+            rejects: &rejects,
+            size: Some(c.len as i64),
+            mtime_ns,
+        };
         let out = self.store.ingest_file(model, &batch, now_ms())?;
         self.settled.insert(c.path.clone(), (c.len, c.modified));
         if out.already_taken {

@@ -94,6 +94,9 @@ pub struct Batch<'a> {
     pub hash: &'a str,
     pub records: &'a [Record],
     pub rejects: &'a [Reject],
+    /// Size and mtime the file had when it was read, so a restart can skip it unread.
+    pub size: Option<i64>,
+    pub mtime_ns: Option<i64>,
 }
 
 /// The durable state.
@@ -105,7 +108,9 @@ const SCHEMA: &str = "
 CREATE TABLE IF NOT EXISTS file (
     model TEXT NOT NULL, kind TEXT NOT NULL, hash TEXT NOT NULL, name TEXT NOT NULL,
     rows_ok INTEGER NOT NULL, rows_bad INTEGER NOT NULL, committed_ms INTEGER NOT NULL,
+    size INTEGER, mtime_ns INTEGER,
     PRIMARY KEY (model, kind, hash));
+CREATE INDEX IF NOT EXISTS file_name ON file (model, kind, name);
 CREATE TABLE IF NOT EXISTS pred (
     model TEXT NOT NULL, id TEXT NOT NULL, t_pred INTEGER NOT NULL, value TEXT NOT NULL,
     state INTEGER NOT NULL, label TEXT,
@@ -194,6 +199,27 @@ impl Store {
         Ok(Store { conn })
     }
 
+    /// True when a file of this name, size and mtime was taken: after a restart the spool is not
+    /// read and hashed again file by file. (A rewrite that keeps size and nanosecond mtime would
+    /// be missed; writers that rename new files into place never do that.)
+    pub fn has_file_meta(
+        &self,
+        model: &str,
+        kind: Kind,
+        name: &str,
+        size: i64,
+        mtime_ns: i64,
+    ) -> Result<bool, StoreError> {
+        Ok(self
+            .conn
+            .prepare_cached(
+                "SELECT 1 FROM file WHERE model = ?1 AND kind = ?2 AND name = ?3 AND size = ?4 AND mtime_ns = ?5 LIMIT 1",
+            )?
+            .query_row(params![model, kind.as_str(), name, size, mtime_ns], |_| Ok(()))
+            .optional()?
+            .is_some())
+    }
+
     /// True when this content was already taken for (model, kind).
     pub fn has_file(&self, model: &str, kind: Kind, hash: &str) -> Result<bool, StoreError> {
         Ok(self
@@ -212,7 +238,7 @@ impl Store {
         batch: &Batch<'_>,
         now_ms: i64,
     ) -> Result<FileOutcome, StoreError> {
-        let Batch { kind, name, hash, records, rejects } = *batch;
+        let Batch { kind, name, hash, records, rejects, .. } = *batch;
         let m = model.name.as_str();
         let tx = self.conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
         let mut out = FileOutcome::default();
@@ -302,8 +328,9 @@ impl Store {
         }
         let bad: u64 = out.rejected.values().sum();
         tx.execute(
-            "INSERT INTO file (model, kind, hash, name, rows_ok, rows_bad, committed_ms) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
-            params![m, kind.as_str(), hash, name, out.rows_ok as i64, bad as i64, now_ms],
+            "INSERT INTO file (model, kind, hash, name, rows_ok, rows_bad, committed_ms, size, mtime_ns)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
+            params![m, kind.as_str(), hash, name, out.rows_ok as i64, bad as i64, now_ms, batch.size, batch.mtime_ns],
         )?;
         tx.execute(
             "INSERT INTO model_meta (model, watermark, last_commit_ms) VALUES (?1, ?2, ?3)

@@ -84,7 +84,8 @@ impl Model {
                         true
                     }
                     Some((_, _, State::Labelled, Some(old))) => {
-                        let r = if old == op.value { RejectReason::DuplicateLabel } else { RejectReason::ConflictingLabel };
+                        let r =
+                            if old == op.value { RejectReason::DuplicateLabel } else { RejectReason::ConflictingLabel };
                         self.reject(r);
                         false
                     }
@@ -94,7 +95,11 @@ impl Model {
                     }
                     None => match self.orphans.get(&id) {
                         Some((_, old)) => {
-                            let r = if old == op.value { RejectReason::DuplicateLabel } else { RejectReason::ConflictingLabel };
+                            let r = if old == op.value {
+                                RejectReason::DuplicateLabel
+                            } else {
+                                RejectReason::ConflictingLabel
+                            };
                             self.reject(r);
                             false
                         }
@@ -162,12 +167,18 @@ pub fn store_outcome(store: &mut Store, cfg: &ModelConfig, file_no: usize, ops: 
         let mut records = Vec::new();
         while i < ops.len() && ops[i].kind == kind {
             let op = &ops[i];
-            records.push(Record { line: (i + 2) as u64, id: format!("i{}", op.id), time_ms: op.time_ms, value: op.value.into() });
+            records.push(Record {
+                line: (i + 2) as u64,
+                id: format!("i{}", op.id),
+                time_ms: op.time_ms,
+                value: op.value.into(),
+            });
             i += 1;
         }
         let hash = format!("{file_no}-{part}");
         part += 1;
-        store.ingest_file(cfg, &Batch { kind, name: "f", hash: &hash, records: &records, rejects: &[] }, 0).unwrap();
+        let batch = Batch { kind, name: "f", hash: &hash, records: &records, rejects: &[], size: None, mtime_ns: None };
+        store.ingest_file(cfg, &batch, 0).unwrap();
     }
     let c = store.counters("m").unwrap();
     let mut rejected = BTreeMap::new();
@@ -208,7 +219,12 @@ pub fn ops_from_bytes(data: &[u8]) -> Vec<Vec<Op>> {
         }
         let (Some(&id), Some(&t), Some(&v)) = (it.next(), it.next(), it.next()) else { break };
         let kind = if b & 1 == 0 { Kind::Prediction } else { Kind::Label };
-        files.last_mut().unwrap().push(Op { kind, id: id % 12, time_ms: i64::from(t) * 500, value: if v & 1 == 0 { "a" } else { "b" } });
+        files.last_mut().unwrap().push(Op {
+            kind,
+            id: id % 12,
+            time_ms: i64::from(t) * 500,
+            value: if v & 1 == 0 { "a" } else { "b" },
+        });
     }
     files
 }
