@@ -21,23 +21,8 @@ const T: i64 = 1_790_000_000;
 const RECENT: usize = 300;
 
 fn config(dir: &TempDir, port: u16) -> std::path::PathBuf {
-    let text = format!(
-        "listen: \"127.0.0.1:{port}\"
-state_dir: state
-rescan_interval: 100ms
-models:
-  - name: crash
-    predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: id, time: t, prediction: p }} }}
-    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: id, time: t, label: y }} }}
-    label_wait: 30d
-    windows:
-      - {{ name: all, last: 100000000 }}
-      - {{ name: recent, last: {RECENT} }}
-"
-    );
-    let p = dir.path("riskbound.yaml");
-    std::fs::write(&p, text).unwrap();
-    p
+    let windows = format!("[ {{ name: all, last: 100000000 }}, {{ name: recent, last: {RECENT} }} ]");
+    common::simple_config(dir, port, "rescan_interval: 100ms", "crash", "    label_wait: 30d", &windows)
 }
 
 /// Batch files to write, in order: (name, content).

@@ -38,20 +38,7 @@ impl Drop for Mount {
 }
 
 fn config(dir: &TempDir, port: u16) -> std::path::PathBuf {
-    let text = format!(
-        "listen: \"127.0.0.1:{port}\"
-state_dir: state
-rescan_interval: 200ms
-models:
-  - name: disk
-    predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: id, time: t, prediction: p }} }}
-    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: id, time: t, label: y }} }}
-    windows: [ {{ name: all, last: 1000000 }} ]
-"
-    );
-    let p = dir.path("c.yaml");
-    std::fs::write(&p, text).unwrap();
-    p
+    common::simple_config(dir, port, "rescan_interval: 200ms", "disk", "", "[ { name: all, last: 1000000 } ]")
 }
 
 fn batch(from: u32, to: u32) -> String {

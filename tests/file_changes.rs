@@ -15,19 +15,8 @@ const T: i64 = 1_790_000_000;
 fn setup(tag: &str) -> (TempDir, Daemon) {
     let dir = TempDir::new(tag);
     let port = common::free_port();
-    let text = format!(
-        "listen: \"127.0.0.1:{port}\"
-state_dir: state
-rescan_interval: 150ms
-models:
-  - name: fc
-    predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: id, time: t, prediction: p }} }}
-    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: id, time: t, label: y }} }}
-    windows: [ {{ name: all, last: 100000 }} ]
-"
-    );
-    std::fs::write(dir.path("c.yaml"), text).unwrap();
-    let d = Daemon::start(&dir.path("c.yaml"), port);
+    let cfg = common::simple_config(&dir, port, "rescan_interval: 150ms", "fc", "", "[ { name: all, last: 100000 } ]");
+    let d = Daemon::start(&cfg, port);
     (dir, d)
 }
 

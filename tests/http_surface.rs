@@ -12,19 +12,8 @@ use common::{Daemon, TempDir};
 fn start(tag: &str, extra: &str) -> (TempDir, Daemon) {
     let dir = TempDir::new(tag);
     let port = common::free_port();
-    let text = format!(
-        "listen: \"127.0.0.1:{port}\"
-state_dir: state
-{extra}
-models:
-  - name: web
-    predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: id, time: t, prediction: p }} }}
-    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: id, time: t, label: y }} }}
-    windows: [ {{ name: all, last: 10 }} ]
-"
-    );
-    std::fs::write(dir.path("c.yaml"), text).unwrap();
-    let d = Daemon::start(&dir.path("c.yaml"), port);
+    let cfg = common::simple_config(&dir, port, extra, "web", "", "[ { name: all, last: 10 } ]");
+    let d = Daemon::start(&cfg, port);
     (dir, d)
 }
 

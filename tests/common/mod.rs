@@ -38,6 +38,27 @@ impl Drop for TempDir {
     }
 }
 
+/// Writes `riskbound.yaml` in `dir` for one zero-one model `name` reading `in/pred-*.csv` and
+/// `in/label-*.csv` with columns id, t, p / id, t, y. `top` holds extra top-level keys,
+/// `model` extra model keys (each line indented by four spaces), `windows` the windows list.
+pub fn simple_config(dir: &TempDir, port: u16, top: &str, name: &str, model: &str, windows: &str) -> PathBuf {
+    let text = format!(
+        "listen: \"127.0.0.1:{port}\"
+state_dir: state
+{top}
+models:
+  - name: {name}
+    predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: id, time: t, prediction: p }} }}
+    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: id, time: t, label: y }} }}
+{model}
+    windows: {windows}
+"
+    );
+    let p = dir.path("riskbound.yaml");
+    std::fs::write(&p, text).unwrap();
+    p
+}
+
 /// A free loopback port (bound and released; the daemon binds it right after).
 pub fn free_port() -> u16 {
     std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port()
