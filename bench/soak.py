@@ -126,7 +126,7 @@ models:
     rng = random.Random(5)
     per_sec = a.rows // 60
     t_start = time.monotonic()
-    event0 = 1_790_000_000_000
+    event0 = 1_790_000_000  # Unix seconds
     pending = {}  # second -> list of label lines
     written = []  # (monotonic time of rename, label file ordinal)
     samples = []  # (elapsed, rss, cpu)
@@ -135,14 +135,14 @@ models:
     label_files = 0
     try:
         while time.monotonic() - t_start < a.minutes * 60:
-            now_ms = event0 + sec * 1000
+            now_s = event0 + sec
             lines = ["id,t,p"]
             for _ in range(per_sec):
                 p = "a" if rng.random() < 0.7 else "b"
-                lines.append(f"s{next_id},{now_ms},{p}")
+                lines.append(f"s{next_id},{now_s},{p}")
                 y = p if rng.random() > 0.08 else ("b" if p == "a" else "a")
                 due = sec + int(rng.random() * lag_ms / 1000)
-                pending.setdefault(due, []).append(f"s{next_id},{now_ms + (due - sec) * 1000},{y}")
+                pending.setdefault(due, []).append(f"s{next_id},{now_s + (due - sec)},{y}")
                 next_id += 1
             tmp = os.path.join(spool, f".pred-{sec:08d}.tmp")
             with open(tmp, "w") as f:
@@ -166,6 +166,12 @@ models:
             if sec % 5 == 0:
                 rss, cpu = proc_stats(proc.pid)
                 samples.append((time.monotonic() - t_start, rss, cpu))
+            if sec % 300 == 0 and sec > 0:
+                with lock:
+                    p99 = pct(latencies, 0.99) * 1000
+                cores_so_far = (samples[-1][2] - samples[0][2]) / max(1e-9, samples[-1][0] - samples[0][0])
+                print(f"progress: {sec / 60:.0f} min, RSS {samples[-1][1]:.0f} MiB, CPU {cores_so_far:.2f} cores, "
+                      f"/metrics p99 {p99:.1f} ms", flush=True)
             sec += 1
             time.sleep(max(0.0, t_start + sec - time.monotonic()))
         time.sleep(5)
@@ -175,6 +181,7 @@ models:
             t.join()
         rss, cpu = proc_stats(proc.pid)
         samples.append((time.monotonic() - t_start, rss, cpu))
+        _, final = get(port, "/metrics")
         proc.terminate()
         proc.wait()
     lags = []
@@ -197,8 +204,13 @@ models:
     print(f"| {elapsed / 60:.1f} min | {per_sec * 60:,} | ≤ {a.lag_minutes:g} min | {a.scrapers} | {max(s[1] for s in samples):.0f} MiB | "
           f"{first:.0f} / {second:.0f} MiB | {cores:.2f} | {p99_scrape:.1f} ms | {p99_lag:.2f} s |")
     shutil.rmtree(work, ignore_errors=True)
+    taken = counter(final, "riskbound_rows_ingested_total", {"model": "soak", "kind": "prediction"})
+    rejected = sum(float(l.rsplit(" ", 1)[1]) for l in final.splitlines() if l.startswith("riskbound_rows_rejected_total{"))
+    print(f"predictions written {next_id}, taken {taken:.0f}, rows rejected {rejected:.0f}")
     if a.check:
         problems = []
+        if taken != next_id or rejected != 0:
+            problems.append("not every written row was taken exactly once")
         if max(s[1] for s in samples) >= 256:
             problems.append("peak RSS >= 256 MiB")
         if second > 1.10 * first:

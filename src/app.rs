@@ -192,6 +192,9 @@ impl Pipeline {
     /// state, and retries the same file on the next round until the volume accepts writes.
     fn round(&mut self, stop: &AtomicBool) -> anyhow::Result<bool> {
         let mut changed = false;
+        // A long backlog (a restart after an outage) is published as it is worked through,
+        // at most once a second, so /metrics does not wait for the end of the round.
+        let mut published = Instant::now();
         for c in watch::scan(&self.config.models) {
             if stop.load(Ordering::SeqCst) {
                 break;
@@ -199,6 +202,11 @@ impl Pipeline {
             match self.take(&c) {
                 Ok(took) => {
                     changed |= took;
+                    if changed && published.elapsed() > Duration::from_secs(1) {
+                        self.publish()?;
+                        published = Instant::now();
+                        changed = false;
+                    }
                     if took && self.health.state_unwritable.swap(false, Ordering::SeqCst) {
                         self.shared.ready.store(true, Ordering::SeqCst);
                         tracing::info!("state database accepts writes again; ready, resuming ingest");

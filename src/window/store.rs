@@ -137,6 +137,8 @@ const EXPIRED: i64 = 2;
 
 /// Adds to a counter inside the current transaction.
 fn bump(tx: &Connection, model: &str, name: &str, by: f64) -> rusqlite::Result<()> {
+    // Counters are REAL so that one table holds counts and sums alike; every count stays far
+    // below 2^53, where doubles are exact.
     if by == 0.0 {
         return Ok(());
     }
@@ -352,7 +354,7 @@ impl Store {
     ) -> rusqlite::Result<()> {
         tx.prepare_cached("INSERT INTO sample (model, id, t_pred, t_label, loss) VALUES (?1, ?2, ?3, ?4, ?5)")?
             .execute(params![model, id, t_pred, t_label, loss])?;
-        Ok(())
+        bump(tx, model, "samples_kept", 1.0)
     }
 
     /// A prediction: rejected if its id was seen, joined at once if its label came first.
@@ -475,10 +477,13 @@ impl Store {
         let m = model.name.as_str();
         let newest: Option<i64> = tx.query_row("SELECT MAX(t_pred) FROM sample WHERE model = ?1", [m], |r| r.get(0))?;
         let Some(newest) = newest else { return Ok(()) };
+        let count = Self::sample_count(tx, m)?;
         let mut keep_from = i64::MAX;
         for w in &model.windows {
             let from = match w.kind {
                 WindowKind::SpanMs(ms) => newest.saturating_sub(ms),
+                // Fewer samples than the window holds: nothing to cut, and no O(n) OFFSET scan.
+                WindowKind::Last(n) if count <= n => i64::MIN,
                 WindowKind::Last(n) => tx
                     .query_row(
                         "SELECT t_pred FROM sample WHERE model = ?1 ORDER BY t_pred DESC, seq DESC LIMIT 1 OFFSET ?2",
@@ -490,8 +495,19 @@ impl Store {
             };
             keep_from = keep_from.min(from);
         }
-        tx.prepare_cached("DELETE FROM sample WHERE model = ?1 AND t_pred < ?2")?.execute(params![m, keep_from])?;
+        let deleted =
+            tx.prepare_cached("DELETE FROM sample WHERE model = ?1 AND t_pred < ?2")?.execute(params![m, keep_from])?;
+        bump(tx, m, "samples_kept", -(deleted as f64))?;
         Ok(())
+    }
+
+    /// Samples currently kept for a model (a counter, because COUNT(*) scans the table).
+    fn sample_count(tx: &Connection, model: &str) -> rusqlite::Result<u64> {
+        let v: Option<f64> = tx
+            .prepare_cached("SELECT value FROM counter WHERE model = ?1 AND name = 'samples_kept'")?
+            .query_row([model], |r| r.get(0))
+            .optional()?;
+        Ok(v.unwrap_or(0.0).max(0.0) as u64)
     }
 
     /// The losses of one window, in arrival order (the order betting needs).
