@@ -9,33 +9,15 @@ import http.client
 import os
 import random
 import shutil
-import socket
 import subprocess
 import tempfile
 import time
 
-
-def free_port():
-    s = socket.socket()
-    s.bind(("127.0.0.1", 0))
-    p = s.getsockname()[1]
-    s.close()
-    return p
+from benchlib import free_port, get, value
 
 
 def scrape(port):
-    c = http.client.HTTPConnection("127.0.0.1", port, timeout=30)
-    c.request("GET", "/metrics")
-    body = c.getresponse().read().decode()
-    c.close()
-    return body
-
-
-def value(text, name, labels):
-    for line in text.splitlines():
-        if line.startswith(name + "{") and all(f'{k}="{v}"' in line for k, v in labels.items()):
-            return float(line.rsplit(" ", 1)[1])
-    return None
+    return get(port, "/metrics")[1]
 
 
 def wait_ready(port, proc):

@@ -16,40 +16,20 @@ average CPU at most one core; /metrics p99 under 100 ms; file-to-metric lag p99 
 Standard library only.
 """
 import argparse
-import http.client
 import os
 import random
 import shutil
-import socket
 import subprocess
 import sys
 import tempfile
 import threading
 import time
 
-
-def free_port():
-    s = socket.socket()
-    s.bind(("127.0.0.1", 0))
-    p = s.getsockname()[1]
-    s.close()
-    return p
-
-
-def get(port, path):
-    c = http.client.HTTPConnection("127.0.0.1", port, timeout=30)
-    c.request("GET", path)
-    r = c.getresponse()
-    body = r.read().decode()
-    c.close()
-    return r.status, body
+from benchlib import free_port, get, value
 
 
 def counter(text, name, labels):
-    for line in text.splitlines():
-        if line.startswith(name + "{") and all(f'{k}="{v}"' in line for k, v in labels.items()):
-            return float(line.rsplit(" ", 1)[1])
-    return 0.0
+    return value(text, name, labels) or 0.0
 
 
 def proc_stats(pid):
