@@ -8,7 +8,9 @@ use std::process::ExitCode;
 use anyhow::Context;
 use clap::{Args, Parser, Subcommand};
 
-use riskbound::cmd::bound::{self, BoundError, LossSource, Plan};
+use riskbound::cmd::bound::{self, BoundError, Input, LossSource, Plan};
+use riskbound::cmd::track::{self, TrackError};
+use riskbound::estimate::anytime::sequence::HoeffdingBoundary;
 use riskbound::estimate::{Confidence, Method};
 use riskbound::ingest::Format;
 use riskbound::loss::LossSpec;
@@ -24,6 +26,8 @@ struct Cli {
 enum Command {
     /// Bound the true risk of the labelled predictions in one file (CSV or JSON Lines)
     Bound(BoundArgs),
+    /// Replay one file in order and print anytime-valid bounds and SLA alarms as they evolve
+    Track(TrackArgs),
     /// Run the daemon: watch batch files, keep windows, serve bounds on /metrics
     Run(RunArgs),
     /// Validate a daemon config file and print the resolved settings (exit 0 or 2)
@@ -45,8 +49,9 @@ struct RunArgs {
     log_format: String,
 }
 
+/// The input file and how to get a loss from each row (shared by `bound` and `track`).
 #[derive(Args)]
-struct BoundArgs {
+struct InputArgs {
     /// Input file: CSV with a header row, or JSON Lines; `-` reads standard input
     file: String,
     /// Input format; by default taken from the extension (.csv, .jsonl, .ndjson)
@@ -70,6 +75,12 @@ struct BoundArgs {
     /// Report one set of bounds per value of this column
     #[arg(long, value_name = "COL")]
     group_by: Option<String>,
+}
+
+#[derive(Args)]
+struct BoundArgs {
+    #[command(flatten)]
+    input: InputArgs,
     /// Confidence C of each one-sided bound, in (0, 1)
     #[arg(long, value_name = "C", default_value = "0.95", value_parser = parse_confidence, allow_hyphen_values = true)]
     confidence: Confidence,
@@ -83,6 +94,35 @@ struct BoundArgs {
     /// Print time spent per phase to standard error (used by the benchmark)
     #[arg(long, hide = true)]
     timings: bool,
+}
+
+#[derive(Args)]
+struct TrackArgs {
+    #[command(flatten)]
+    input: InputArgs,
+    /// Confidence C: each one-sided bound, and each alarm, errs with probability at most 1 − C
+    /// over the whole replay, not per line
+    #[arg(long, value_name = "C", default_value = "0.95", value_parser = parse_confidence, allow_hyphen_values = true)]
+    confidence: Confidence,
+    /// Print the state after every K rows of a group (and at the end of each group)
+    #[arg(long, value_name = "K", default_value = "1000", value_parser = clap::value_parser!(u64).range(1..))]
+    every: u64,
+    /// The SLA θ: test "the risk exceeded θ since the start" and watch for a rise above θ
+    #[arg(long, value_name = "THETA", allow_hyphen_values = true)]
+    sla_max_risk: Option<f64>,
+    /// The change detector's budget: P(false alarm within the first M rows) ≤ 1 − C
+    /// [default: 100000]
+    #[arg(long, value_name = "M", value_parser = clap::value_parser!(u64).range(1..))]
+    change_horizon: Option<u64>,
+    /// The time-uniform boundary of hoeffding-cs
+    #[arg(long, value_name = "KIND", default_value = "stitched", value_parser = ["stitched", "normal-mixture"])]
+    hoeffding_boundary: String,
+    /// Cells of the betting-cs grid (its bounds are conservative by at most B/G)
+    #[arg(long, value_name = "G", default_value = "1000", value_parser = clap::value_parser!(u32).range(2..=100_000))]
+    grid: u32,
+    /// One JSON object a line instead of a table
+    #[arg(long)]
+    json: bool,
 }
 
 fn parse_confidence(s: &str) -> Result<Confidence, String> {
@@ -117,7 +157,7 @@ impl std::fmt::Display for UsageError {
 }
 impl std::error::Error for UsageError {}
 
-fn plan_bound(a: &BoundArgs) -> Result<Plan, UsageError> {
+fn plan_input(a: &InputArgs) -> Result<Input, UsageError> {
     let stdin = a.file == "-";
     let format = match (&a.format, stdin) {
         (Some(f), _) => Format::parse(f).expect("clap restricts the values"),
@@ -157,27 +197,33 @@ fn plan_bound(a: &BoundArgs) -> Result<Plan, UsageError> {
             ))
         }
     };
-    let mut methods = a.methods.clone();
-    methods.dedup();
-    Ok(Plan {
+    Ok(Input {
         file_label: if stdin { "<stdin>".into() } else { a.file.clone() },
         format,
         source,
         loss,
         group_by: a.group_by.clone(),
-        confidence: a.confidence,
-        methods,
     })
 }
 
-fn run_bound(a: &BoundArgs) -> anyhow::Result<()> {
-    let plan = plan_bound(a)?;
-    let report = if a.file == "-" {
-        bound::run(&plan, io::stdin().lock())?
+/// Opens the input (standard input for `-`) and runs `f` on it.
+fn with_input<T>(
+    file: &str,
+    f: impl FnOnce(Box<dyn io::Read>) -> anyhow::Result<T>,
+) -> anyhow::Result<T> {
+    if file == "-" {
+        f(Box::new(io::stdin().lock()))
     } else {
-        let f = std::fs::File::open(&a.file).map_err(|e| UsageError(format!("{}: cannot open: {e}", a.file)))?;
-        bound::run(&plan, f)?
-    };
+        let h = std::fs::File::open(file).map_err(|e| UsageError(format!("{file}: cannot open: {e}")))?;
+        f(Box::new(h))
+    }
+}
+
+fn run_bound(a: &BoundArgs) -> anyhow::Result<()> {
+    let mut methods = a.methods.clone();
+    methods.dedup();
+    let plan = Plan { input: plan_input(&a.input)?, confidence: a.confidence, methods };
+    let report = with_input(&a.input.file, |src| Ok(bound::run(&plan, src)?))?;
     if a.timings {
         for (phase, d) in &report.timings {
             eprintln!("timing {phase} {:.6}", d.as_secs_f64());
@@ -191,6 +237,32 @@ fn run_bound(a: &BoundArgs) -> anyhow::Result<()> {
     } else {
         bound::write_table(&report, &mut out)?;
     }
+    out.flush()?;
+    Ok(())
+}
+
+fn run_track(a: &TrackArgs) -> anyhow::Result<()> {
+    let input = plan_input(&a.input)?;
+    if let Some(t) = a.sla_max_risk {
+        if !(t >= 0.0 && t <= input.loss.max()) {
+            return Err(UsageError(format!("--sla-max-risk {t} is outside the loss range [0, {}]", input.loss.max())).into());
+        }
+    } else if a.change_horizon.is_some() {
+        return Err(UsageError("--change-horizon needs --sla-max-risk: the detector watches for a rise above it".into()).into());
+    }
+    let plan = track::Plan {
+        input,
+        confidence: a.confidence,
+        every: a.every,
+        sla_max_risk: a.sla_max_risk,
+        change_horizon: a.change_horizon.unwrap_or(track::DEFAULT_CHANGE_HORIZON),
+        hoeffding_boundary: HoeffdingBoundary::parse(&a.hoeffding_boundary).expect("clap restricts the values"),
+        grid: a.grid,
+    };
+    let stdout = io::stdout();
+    let mut out = BufWriter::new(stdout.lock());
+    let json = a.json;
+    with_input(&a.input.file, |src| Ok(track::run(&plan, src, &mut out, json)?))?;
     out.flush()?;
     Ok(())
 }
@@ -228,6 +300,7 @@ fn main() -> ExitCode {
     let cli = Cli::parse();
     let result = match &cli.command {
         Command::Bound(a) => run_bound(a),
+        Command::Track(a) => run_track(a),
         Command::Run(a) => run_daemon(a),
         Command::CheckConfig { file } => load_config(file).map(|c| print!("{}", c.describe())),
         Command::Demo(a) => {
@@ -245,6 +318,7 @@ fn main() -> ExitCode {
             }
             let user_error = e.downcast_ref::<UsageError>().is_some()
                 || e.downcast_ref::<BoundError>().is_some()
+                || matches!(e.downcast_ref::<TrackError>(), Some(TrackError::Input(_)))
                 || e.chain().any(|c| c.to_string().starts_with("binding "));
             ExitCode::from(if user_error { 2 } else { 1 })
         }

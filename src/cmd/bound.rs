@@ -22,15 +22,21 @@ pub enum LossSource {
     Compare { prediction: String, label: String },
 }
 
-/// Validated settings for one run.
+/// Where the losses of a file come from: shared by `bound` and `track`.
 #[derive(Clone, Debug)]
-pub struct Plan {
+pub struct Input {
     /// Name used in messages (the path, or `<stdin>`).
     pub file_label: String,
     pub format: Format,
     pub source: LossSource,
     pub loss: LossSpec,
     pub group_by: Option<String>,
+}
+
+/// Validated settings for one run.
+#[derive(Clone, Debug)]
+pub struct Plan {
+    pub input: Input,
     pub confidence: Confidence,
     /// Methods asked for explicitly; empty means every method that applies.
     pub methods: Vec<Method>,
@@ -72,36 +78,37 @@ fn required<'a>(row: &Row<'a>, file: &str, columns: &[&str], i: usize) -> Result
     row.cell(i).ok_or_else(|| DecodeError::cell(file, row.line, columns[i], "missing value"))
 }
 
-struct Group {
-    key: Option<String>,
-    summary: LossSummary,
-    clipped: u64,
+/// One loss of the file, in file order.
+pub struct LossRow<'a> {
+    /// The group's key bytes (`None` without a group column).
+    pub key: Option<&'a [u8]>,
+    pub line: u64,
+    pub loss: f64,
+    /// True when a regression loss was above the maximum and was clipped to it.
+    pub clipped: bool,
 }
 
-/// Runs the plan over `src`.
-pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
-    let keep_losses = plan.methods.is_empty() || plan.methods.iter().any(|m| m.needs_losses());
-    let loss_max = plan.loss.max();
-    let new_summary = || if keep_losses { LossSummary::keeping_losses(loss_max) } else { LossSummary::new(loss_max) };
-
-    let mut columns: Vec<&str> = match &plan.source {
+/// Streams `src` once and hands every row's loss to `visit`, in file order. Any bad row stops
+/// the pass with a located error. Returns the number of the last line read.
+pub fn for_each_loss<R: Read>(
+    input: &Input,
+    src: R,
+    mut visit: impl FnMut(LossRow<'_>) -> Result<(), DecodeError>,
+) -> Result<u64, DecodeError> {
+    let mut columns: Vec<&str> = match &input.source {
         LossSource::Column(c) => vec![c.as_str()],
         LossSource::Compare { prediction, label } => vec![prediction.as_str(), label.as_str()],
     };
-    if let Some(g) = &plan.group_by {
+    if let Some(g) = &input.group_by {
         columns.push(g.as_str());
     }
-    let file = plan.file_label.as_str();
-    let mut groups: Vec<Group> = Vec::new();
-    let mut index: HashMap<Vec<u8>, usize> = HashMap::new();
+    let file = input.file_label.as_str();
     let mut last_line = 1u64;
-
-    let started = Instant::now();
-    for_each_row(src, plan.format, file, &columns, |row| {
+    for_each_row(src, input.format, file, &columns, |row| {
         let row = row?;
         last_line = row.line;
         let located = |i: usize, e: loss::CellError| DecodeError::cell(file, row.line, columns[i], e);
-        let (value, clipped) = match (&plan.source, plan.loss) {
+        let (value, clipped) = match (&input.source, input.loss) {
             (LossSource::Column(_), LossSpec::Column { max }) => {
                 let v = loss::parse_number(required(&row, file, &columns, 0)?).map_err(|e| located(0, e))?;
                 (loss::check_loss(v, max).map_err(|e| located(0, e))?, false)
@@ -115,43 +122,85 @@ pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
                 let c = loss::regression(&kind, p, y);
                 (c.value, c.clipped)
             }
-            (source, kind) => unreachable!("plan pairs {source:?} with {kind:?}; validation forbids it"),
+            (source, kind) => unreachable!("input pairs {source:?} with {kind:?}; validation forbids it"),
         };
-        let slot = match &plan.group_by {
+        let key = match &input.group_by {
+            None => None,
+            Some(_) => Some(required(&row, file, &columns, columns.len() - 1)?),
+        };
+        visit(LossRow { key, line: row.line, loss: value, clipped })
+    })?;
+    Ok(last_line)
+}
+
+/// Groups in order of first appearance, found by key.
+pub struct Groups<T> {
+    pub items: Vec<(Option<String>, T)>,
+    index: HashMap<Vec<u8>, usize>,
+}
+
+impl<T> Groups<T> {
+    pub fn new() -> Self {
+        Groups { items: Vec::new(), index: HashMap::new() }
+    }
+
+    /// The slot of `key`, created by `make` on first sight.
+    pub fn slot(&mut self, key: Option<&[u8]>, make: impl FnOnce() -> T) -> usize {
+        match key {
             None => {
-                if groups.is_empty() {
-                    groups.push(Group { key: None, summary: new_summary(), clipped: 0 });
+                if self.items.is_empty() {
+                    self.items.push((None, make()));
                 }
                 0
             }
-            Some(_) => {
-                let key = required(&row, file, &columns, columns.len() - 1)?;
-                match index.get(key) {
-                    Some(&i) => i,
-                    None => {
-                        let i = groups.len();
-                        index.insert(key.to_vec(), i);
-                        let name = String::from_utf8_lossy(key).into_owned();
-                        groups.push(Group { key: Some(name), summary: new_summary(), clipped: 0 });
-                        i
-                    }
+            Some(key) => match self.index.get(key) {
+                Some(&i) => i,
+                None => {
+                    let i = self.items.len();
+                    self.index.insert(key.to_vec(), i);
+                    self.items.push((Some(String::from_utf8_lossy(key).into_owned()), make()));
+                    i
                 }
-            }
-        };
-        let g = &mut groups[slot];
-        g.summary.push(value);
-        g.clipped += u64::from(clipped);
+            },
+        }
+    }
+}
+
+impl<T> Default for Groups<T> {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+struct Group {
+    summary: LossSummary,
+    clipped: u64,
+}
+
+/// Runs the plan over `src`.
+pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
+    let keep_losses = plan.methods.is_empty() || plan.methods.iter().any(|m| m.needs_losses());
+    let loss_max = plan.input.loss.max();
+    let new_summary = || if keep_losses { LossSummary::keeping_losses(loss_max) } else { LossSummary::new(loss_max) };
+    let file = plan.input.file_label.as_str();
+    let mut groups: Groups<Group> = Groups::new();
+    let started = Instant::now();
+    let last_line = for_each_loss(&plan.input, src, |row| {
+        let i = groups.slot(row.key, || Group { summary: new_summary(), clipped: 0 });
+        let g = &mut groups.items[i].1;
+        g.summary.push(row.loss);
+        g.clipped += u64::from(row.clipped);
         Ok(())
     })?;
     let mut timings = vec![("read".to_string(), started.elapsed())];
 
-    if groups.is_empty() {
+    if groups.items.is_empty() {
         return Err(DecodeError::row(file, last_line + 1, "no data rows").into());
     }
 
     let mut per_method: HashMap<Method, Duration> = HashMap::new();
-    let mut reports = Vec::with_capacity(groups.len());
-    for g in groups {
+    let mut reports = Vec::with_capacity(groups.items.len());
+    for (key, g) in groups.items {
         let methods: Vec<Method> = if plan.methods.is_empty() {
             Method::ALL.into_iter().filter(|m| m.applies(&g.summary)).collect()
         } else {
@@ -162,18 +211,18 @@ pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
             let t = Instant::now();
             let b = estimate::bounds(m, &g.summary, plan.confidence).map_err(|source| BoundError::Method {
                 file: file.to_string(),
-                group: g.key.clone().unwrap_or_else(|| "(all rows)".to_string()),
+                group: key.clone().unwrap_or_else(|| "(all rows)".to_string()),
                 source,
             })?;
             *per_method.entry(m).or_default() += t.elapsed();
             bounds.push((m, b));
         }
-        reports.push(GroupReport { key: g.key, n: g.summary.n(), mean: g.summary.mean(), clipped: g.clipped, bounds });
+        reports.push(GroupReport { key, n: g.summary.n(), mean: g.summary.mean(), clipped: g.clipped, bounds });
     }
     let mut methods: Vec<_> = per_method.into_iter().collect();
     methods.sort();
     timings.extend(methods.into_iter().map(|(m, d)| (m.name().to_string(), d)));
-    Ok(Report { confidence: plan.confidence, loss: plan.loss, groups: reports, timings })
+    Ok(Report { confidence: plan.confidence, loss: plan.input.loss, groups: reports, timings })
 }
 
 /// The JSON document: `{"confidence": C, "groups": [{"group", "n", "mean", "bounds"}]}`.

@@ -3,3 +3,4 @@
 
 pub mod bound;
 pub mod demo;
+pub mod track;

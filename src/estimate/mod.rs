@@ -8,6 +8,7 @@
 //! serves every loss range. To add a method: one file here with a pure function, one variant in
 //! [`Method`], one arm in [`bounds`] (see DEVELOPERS.md).
 
+pub mod anytime;
 pub mod bernstein;
 pub mod betting;
 pub mod binomial;
