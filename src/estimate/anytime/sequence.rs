@@ -98,35 +98,48 @@ impl BettingCs {
 /// The predictable plug-in empirical-Bernstein sequence (METHODS.md §1.6(e)):
 /// U_t = [Σ λ_i x_i + ln(1/α) + Σ v_i ψ_E(λ_i)] / Σ λ_i with λ_i the sequence bets capped at c,
 /// v_i = 4 (x_i − x̄_{i−1})², ψ_E(λ) = (−ln(1 − λ) − λ)/4; L_t mirrors it. The centre x̄_{i−1} is
-/// the plain running mean (0 before the first loss), as in `confseq`. O(1) per loss.
+/// the plain running mean, as in `confseq`; before the first loss it is 0 for the lower side
+/// and, by the mirror x → 1 − x, 1 for the upper side. O(1) per loss.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct EmpiricalBernsteinCs {
     t: u64,
     sum: f64,
     weighted: f64,
     weights: f64,
-    penalty: f64,
+    /// Σ v_i ψ_E(λ_i) of the lower and of the upper side (they differ only in v_1).
+    penalty_lower: f64,
+    penalty_upper: f64,
     lower: f64,
     upper: f64,
 }
 
 impl Default for EmpiricalBernsteinCs {
     fn default() -> Self {
-        EmpiricalBernsteinCs { t: 0, sum: 0.0, weighted: 0.0, weights: 0.0, penalty: 0.0, lower: 0.0, upper: 1.0 }
+        EmpiricalBernsteinCs {
+            t: 0,
+            sum: 0.0,
+            weighted: 0.0,
+            weights: 0.0,
+            penalty_lower: 0.0,
+            penalty_upper: 0.0,
+            lower: 0.0,
+            upper: 1.0,
+        }
     }
 }
 
 impl EmpiricalBernsteinCs {
     pub fn push(&mut self, x: f64, bet: f64, ln_inv_alpha: f64) {
         let lambda = bet.min(TRUNCATION);
-        let centre = if self.t == 0 { 0.0 } else { self.sum / self.t as f64 };
-        let v = 4.0 * (x - centre) * (x - centre);
+        let (centre_lower, centre_upper) =
+            if self.t == 0 { (0.0, 1.0) } else { (self.sum / self.t as f64, self.sum / self.t as f64) };
         let psi = (-(-lambda).ln_1p() - lambda) / 4.0;
         self.weighted += lambda * x;
         self.weights += lambda;
-        self.penalty += v * psi;
-        let u = (self.weighted + ln_inv_alpha + self.penalty) / self.weights;
-        let l = (self.weighted - ln_inv_alpha - self.penalty) / self.weights;
+        self.penalty_lower += 4.0 * (x - centre_lower) * (x - centre_lower) * psi;
+        self.penalty_upper += 4.0 * (x - centre_upper) * (x - centre_upper) * psi;
+        let u = (self.weighted + ln_inv_alpha + self.penalty_upper) / self.weights;
+        let l = (self.weighted - ln_inv_alpha - self.penalty_lower) / self.weights;
         self.upper = self.upper.min(u.min(1.0));
         self.lower = self.lower.max(l.max(0.0));
         self.t += 1;
