@@ -16,7 +16,7 @@ use std::time::{Duration, Instant, SystemTime, UNIX_EPOCH};
 use anyhow::Context;
 use std::io::BufReader;
 
-use crate::config::Config;
+use crate::config::{Config, WindowGuarantee};
 use crate::export::registry::{self, Health, SharedSnapshot};
 use crate::export::server::{self, Shared};
 use crate::ingest::reader::{CappedLines, Hashing};
@@ -54,15 +54,31 @@ struct Pipeline {
     /// Files already settled this run, by path, with the size and mtime they had: unchanged
     /// files are not read again on every rescan.
     settled: HashMap<PathBuf, (u64, Option<SystemTime>)>,
+    /// Resets (by `riskbound reset`, another process) already reflected in the snapshot.
+    resets_seen: u64,
 }
 
 impl Pipeline {
-    fn publish(&self) -> anyhow::Result<()> {
+    fn publish(&mut self) -> anyhow::Result<()> {
         let mut models = Vec::with_capacity(self.config.models.len());
         for m in &self.config.models {
-            models.push(window::model_snapshot(&self.store, m)?);
+            let k = if m.window_guarantee == WindowGuarantee::Spent {
+                match self.store.next_evaluation(&m.name) {
+                    Ok(k) => k,
+                    Err(e) if e.is_disk() => {
+                        // Without a durable k, a restart could reuse δ_k: keep the last snapshot.
+                        tracing::warn!(model = %m.name, error = %e, "cannot record the evaluation count; snapshot not refreshed");
+                        return Ok(());
+                    }
+                    Err(e) => return Err(e.into()),
+                }
+            } else {
+                1
+            };
+            models.push(window::model_snapshot(&self.store, m, k)?);
         }
         *self.snapshot.write().expect("snapshot lock poisoned") = Arc::new(Snapshot { models });
+        self.resets_seen = self.store.resets_total()?;
         Ok(())
     }
 
@@ -169,6 +185,13 @@ impl Pipeline {
         if out.already_taken {
             return Ok(false);
         }
+        if out.tracker_restarted {
+            tracing::warn!(
+                model = %model.name,
+                "anytime sequences and alarms restarted: the stored ones were made for other settings \
+                 (confidence, loss, SLA or reference); evidence does not carry over between tests"
+            );
+        }
         let bad: u64 = out.rejected.values().sum();
         tracing::info!(
             model = %model.name,
@@ -239,7 +262,9 @@ impl Pipeline {
             if stop.load(Ordering::SeqCst) {
                 return Ok(());
             }
-            if self.round(&stop)? {
+            // A reset from another process changes what /metrics must show, with no new file.
+            let reset_elsewhere = self.store.resets_total().is_ok_and(|r| r != self.resets_seen);
+            if self.round(&stop)? || reset_elsewhere {
                 self.publish()?;
             }
             rounds.fetch_add(1, Ordering::SeqCst);
@@ -297,13 +322,14 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     tracing::info!(%addr, "serving /metrics, /healthz, /readyz");
 
     let store = Store::open(&config.state_dir)?;
-    let pipeline = Pipeline {
+    let mut pipeline = Pipeline {
         config: config.clone(),
         store,
         snapshot: snapshot.clone(),
         shared: shared.clone(),
         health,
         settled: HashMap::new(),
+        resets_seen: 0,
     };
     // Resume: the snapshot of the committed state is published before anything new is read,
     // and only then is the daemon ready.

@@ -13,9 +13,19 @@ use std::time::Duration;
 use serde::Deserialize;
 use serde_saphyr::Spanned;
 
+use crate::cmd::bound::{self, Input, LossSource, Plan};
+use crate::estimate::anytime::evidence::ChangeDetector;
+use crate::estimate::anytime::sequence::HoeffdingBoundary;
+use crate::estimate::anytime::{TrackerSpec, DEFAULT_GRID};
 use crate::estimate::{Confidence, Method};
 use crate::ingest::Format;
 use crate::loss::LossSpec;
+
+/// The window name of the anytime sequences in metrics; no configured window may take it.
+pub const SINCE_RESET: &str = "since-reset";
+
+/// The change detector's horizon when none is configured: 10^5 labels.
+pub const DEFAULT_CHANGE_HORIZON: u64 = 100_000;
 
 /// Default listen address: loopback, so nothing is exposed unless asked for.
 pub const DEFAULT_LISTEN: &str = "127.0.0.1:9417";
@@ -46,6 +56,7 @@ struct RawModel {
     confidence: Option<Spanned<f64>>,
     label_wait: Option<Spanned<String>>,
     windows: Spanned<Vec<RawWindow>>,
+    window_guarantee: Option<Spanned<String>>,
     sla: Option<Spanned<RawSla>>,
 }
 
@@ -83,6 +94,18 @@ struct RawSla {
     method: Option<Spanned<String>>,
     min_samples: Option<Spanned<i64>>,
     min_label_coverage: Option<Spanned<f64>>,
+    change_horizon: Option<Spanned<i64>>,
+    reference: Option<Spanned<RawReference>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawReference {
+    file: Spanned<String>,
+    format: Option<Spanned<String>>,
+    columns: Spanned<RawColumns>,
+    tolerance: Spanned<f64>,
+    confidence: Option<Spanned<f64>>,
 }
 
 // === validated types ===
@@ -118,7 +141,40 @@ pub struct ModelConfig {
     /// Rows whose event time is more than this (ms) ahead of the wall clock are rejected.
     pub future_tolerance_ms: i64,
     pub windows: Vec<WindowConfig>,
+    /// What the per-window bounds promise: each evaluation on its own, or δ spent over all.
+    pub window_guarantee: WindowGuarantee,
     pub sla: Option<SlaConfig>,
+}
+
+/// The guarantee of the per-window bounds (the anytime sequences always hold at every label).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum WindowGuarantee {
+    /// Each published bound errs with probability ≤ δ on its own; repeated looks add up.
+    PerWindow,
+    /// Evaluation k (each publish is one) uses δ_k = δ/(k(k+1)), so all of them together err
+    /// with probability ≤ δ (Σ δ/(k(k+1)) = δ); the bounds widen slowly as k grows.
+    Spent,
+}
+
+impl WindowGuarantee {
+    /// The label value metrics carry.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            WindowGuarantee::PerWindow => "per-window",
+            WindowGuarantee::Spent => "spent",
+        }
+    }
+
+    /// δ_k of evaluation k (1-based).
+    pub fn delta(self, delta: f64, k: u64) -> f64 {
+        match self {
+            WindowGuarantee::PerWindow => delta,
+            WindowGuarantee::Spent => {
+                let k = k.max(1) as f64;
+                delta / (k * (k + 1.0))
+            }
+        }
+    }
 }
 
 /// Which rows of a directory belong to a model, and which columns hold what.
@@ -161,6 +217,53 @@ pub struct SlaConfig {
     /// Below this fraction of predictions that got their label (of those whose wait is over),
     /// every window of the model is `inconclusive`: missing labels may be missing by outcome.
     pub min_label_coverage: f64,
+    /// The change detector's horizon M: P(false alarm within the first M labels after a reset)
+    /// ≤ δ, and its mean run length to a false alarm is ≥ M/δ.
+    pub change_horizon: u64,
+    /// The harmful-shift test's reference, if configured.
+    pub reference: Option<ReferenceConfig>,
+}
+
+/// A reference set (validation data) for the harmful-shift test: H0 "the deployed risk is at
+/// most the reference risk + tolerance". Its upper bound is computed once, when the config is
+/// loaded, at the reference's own confidence; the test's total false-alarm probability is
+/// (1 − reference confidence) + (1 − model confidence).
+#[derive(Clone, Debug, PartialEq)]
+pub struct ReferenceConfig {
+    pub file: PathBuf,
+    pub n: u64,
+    pub mean: f64,
+    /// The reference's upper bound (by the SLA method) at `confidence`.
+    pub upper: f64,
+    pub confidence: Confidence,
+    pub tolerance: f64,
+}
+
+impl ReferenceConfig {
+    /// θ of the shift test: the reference's upper bound plus the tolerance.
+    pub fn max_risk(&self) -> f64 {
+        self.upper + self.tolerance
+    }
+}
+
+impl ModelConfig {
+    /// What the model's anytime tracker computes.
+    pub fn tracker_spec(&self) -> TrackerSpec {
+        let delta = self.confidence.delta();
+        TrackerSpec {
+            delta,
+            loss_max: self.loss.max(),
+            grid: DEFAULT_GRID,
+            hoeffding_boundary: HoeffdingBoundary::Stitched,
+            sla_max_risk: self.sla.as_ref().map(|s| s.max_risk),
+            shift_max_risk: self
+                .sla
+                .as_ref()
+                .and_then(|s| s.reference.as_ref())
+                .map(|r| r.max_risk().min(self.loss.max())),
+            change: self.sla.as_ref().map(|s| (s.max_risk, ChangeDetector::threshold_for(s.change_horizon, delta))),
+        }
+    }
 }
 
 /// One located configuration problem.
@@ -312,6 +415,99 @@ impl Checker {
         }
     }
 
+    /// Reads the reference file and bounds its risk; problems are reported at `key`.
+    fn reference(
+        &mut self,
+        raw: &Spanned<RawReference>,
+        key: &str,
+        loss: LossSpec,
+        method: Method,
+        model_confidence: Confidence,
+    ) -> Option<ReferenceConfig> {
+        let r = &raw.value;
+        let start = self.issues.len();
+        if !(r.tolerance.value >= 0.0 && r.tolerance.value <= loss.max()) {
+            self.push(
+                &r.tolerance,
+                &format!("{key}.tolerance"),
+                format!("must lie in [0, {}], got {}", loss.max(), r.tolerance.value),
+            );
+        }
+        let confidence = match &r.confidence {
+            None => model_confidence,
+            Some(c) => Confidence::new(c.value).unwrap_or_else(|e| {
+                self.push(c, &format!("{key}.confidence"), e);
+                model_confidence
+            }),
+        };
+        let file = self.path(&r.file.value);
+        let cols = &r.columns.value;
+        let source = match (loss, &cols.loss, &cols.prediction, &cols.label) {
+            (LossSpec::Column { .. }, Some(l), None, None) => Some(LossSource::Column(l.value.clone())),
+            (LossSpec::Column { .. }, _, _, _) => {
+                self.push(&r.columns, &format!("{key}.columns"), "with loss: column, give columns.loss only");
+                None
+            }
+            (_, None, Some(p), Some(l)) => {
+                Some(LossSource::Compare { prediction: p.value.clone(), label: l.value.clone() })
+            }
+            _ => {
+                self.push(&r.columns, &format!("{key}.columns"), "give columns.prediction and columns.label");
+                None
+            }
+        };
+        let format = match &r.format {
+            None => Format::from_path(&file),
+            Some(f) => Format::parse(&f.value).or_else(|| {
+                self.push(f, &format!("{key}.format"), format!("{:?} is not csv or jsonl", f.value));
+                None
+            }),
+        };
+        let Some(format) = format else {
+            if r.format.is_none() {
+                self.push(
+                    &r.file,
+                    &format!("{key}.file"),
+                    "cannot tell the format from the extension; add format: csv or jsonl",
+                );
+            }
+            return None;
+        };
+        if self.issues.len() > start {
+            return None;
+        }
+        let source = source?;
+        let opened = match std::fs::File::open(&file) {
+            Ok(f) => f,
+            Err(e) => {
+                self.push(&r.file, &format!("{key}.file"), format!("cannot read {}: {e}", file.display()));
+                return None;
+            }
+        };
+        let plan = Plan {
+            input: Input { file_label: file.display().to_string(), format, source, loss, group_by: None },
+            confidence,
+            methods: vec![method],
+        };
+        match bound::run(&plan, std::io::BufReader::new(opened)) {
+            Ok(report) => {
+                let g = &report.groups[0];
+                Some(ReferenceConfig {
+                    file,
+                    n: g.n,
+                    mean: g.mean,
+                    upper: g.bounds[0].1.upper,
+                    confidence,
+                    tolerance: r.tolerance.value,
+                })
+            }
+            Err(e) => {
+                self.push(&r.file, &format!("{key}.file"), e);
+                None
+            }
+        }
+    }
+
     fn duration_ms(&mut self, raw: &Spanned<String>, key: &str) -> Option<i64> {
         match parse_duration(&raw.value) {
             Ok(d) => Some(d.as_millis().min(i64::MAX as u128) as i64),
@@ -400,6 +596,12 @@ impl Checker {
             let wk = format!("{k}.windows[{j}]");
             if !valid_name(&w.name.value) {
                 self.push(&w.name, &format!("{wk}.name"), format!("{:?} must match [a-z0-9_-]+", w.name.value));
+            } else if w.name.value == SINCE_RESET {
+                self.push(
+                    &w.name,
+                    &format!("{wk}.name"),
+                    format!("{SINCE_RESET:?} is reserved for the anytime sequences"),
+                );
             } else if !names.insert(w.name.value.clone()) {
                 self.push(&w.name, &format!("{wk}.name"), format!("duplicate window name {:?}", w.name.value));
             }
@@ -469,8 +671,35 @@ impl Checker {
                     0.0
                 }
             };
-            SlaConfig { max_risk: s.max_risk.value, method, min_samples, min_label_coverage }
+            let change_horizon = match &s.change_horizon {
+                None => DEFAULT_CHANGE_HORIZON,
+                Some(n) if n.value >= 1 => n.value as u64,
+                Some(n) => {
+                    self.push(
+                        n,
+                        &format!("{k}.sla.change_horizon"),
+                        format!("must be at least 1 label, got {}", n.value),
+                    );
+                    1
+                }
+            };
+            let reference = s
+                .reference
+                .as_ref()
+                .and_then(|r| self.reference(r, &format!("{k}.sla.reference"), loss, method, confidence));
+            SlaConfig { max_risk: s.max_risk.value, method, min_samples, min_label_coverage, change_horizon, reference }
         });
+        let window_guarantee = match &raw.window_guarantee {
+            None => WindowGuarantee::PerWindow,
+            Some(g) => match g.value.as_str() {
+                "per-window" => WindowGuarantee::PerWindow,
+                "spent" => WindowGuarantee::Spent,
+                other => {
+                    self.push(g, &format!("{k}.window_guarantee"), format!("{other:?} is not per-window or spent"));
+                    WindowGuarantee::PerWindow
+                }
+            },
+        };
 
         if self.issues.len() > start {
             return None;
@@ -484,6 +713,7 @@ impl Checker {
             label_wait_ms,
             future_tolerance_ms: 86_400_000,
             windows,
+            window_guarantee,
             sla,
         })
     }
@@ -655,6 +885,29 @@ impl Config {
                     )
                 }
                 None => s += "  sla: none\n",
+            }
+            s += &format!("  window bounds: {}\n", m.window_guarantee.as_str());
+            if let Some(sla) = &m.sla {
+                let delta = m.confidence.delta();
+                s += &format!(
+                    "  alarms (anytime, each false with probability <= {delta:.3e}): exceeded since reset (risk > {}); \
+                     change (rise above {}; P(false alarm in the first {} labels) <= {delta:.3e})\n",
+                    sla.max_risk, sla.max_risk, sla.change_horizon
+                );
+                if let Some(r) = &sla.reference {
+                    s += &format!(
+                        "  shift: reference {} (n {}, mean {:.6}, upper {:.6} at confidence {}) + tolerance {} = {:.6}; \
+                         false alarm probability <= {:.3e}\n",
+                        r.file.display(),
+                        r.n,
+                        r.mean,
+                        r.upper,
+                        r.confidence.level(),
+                        r.tolerance,
+                        r.max_risk(),
+                        r.confidence.delta() + delta
+                    );
+                }
             }
         }
         s

@@ -30,6 +30,15 @@ enum Command {
     Track(TrackArgs),
     /// Run the daemon: watch batch files, keep windows, serve bounds on /metrics
     Run(RunArgs),
+    /// Restart a model's anytime sequences and alarms from the next label (after a redeploy,
+    /// or once an alarm is handled). Safe while the daemon runs
+    Reset {
+        /// The model's name, as in the config
+        model: String,
+        /// The daemon's YAML config file
+        #[arg(long, value_name = "FILE")]
+        config: PathBuf,
+    },
     /// Validate a daemon config file and print the resolved settings (exit 0 or 2)
     CheckConfig {
         /// The YAML config file
@@ -207,10 +216,7 @@ fn plan_input(a: &InputArgs) -> Result<Input, UsageError> {
 }
 
 /// Opens the input (standard input for `-`) and runs `f` on it.
-fn with_input<T>(
-    file: &str,
-    f: impl FnOnce(Box<dyn io::Read>) -> anyhow::Result<T>,
-) -> anyhow::Result<T> {
+fn with_input<T>(file: &str, f: impl FnOnce(Box<dyn io::Read>) -> anyhow::Result<T>) -> anyhow::Result<T> {
     if file == "-" {
         f(Box::new(io::stdin().lock()))
     } else {
@@ -245,10 +251,15 @@ fn run_track(a: &TrackArgs) -> anyhow::Result<()> {
     let input = plan_input(&a.input)?;
     if let Some(t) = a.sla_max_risk {
         if !(t >= 0.0 && t <= input.loss.max()) {
-            return Err(UsageError(format!("--sla-max-risk {t} is outside the loss range [0, {}]", input.loss.max())).into());
+            return Err(
+                UsageError(format!("--sla-max-risk {t} is outside the loss range [0, {}]", input.loss.max())).into()
+            );
         }
     } else if a.change_horizon.is_some() {
-        return Err(UsageError("--change-horizon needs --sla-max-risk: the detector watches for a rise above it".into()).into());
+        return Err(UsageError(
+            "--change-horizon needs --sla-max-risk: the detector watches for a rise above it".into(),
+        )
+        .into());
     }
     let plan = track::Plan {
         input,
@@ -284,6 +295,25 @@ fn load_config(path: &Path) -> anyhow::Result<riskbound::config::Config> {
     riskbound::config::load(path).map_err(|e| UsageError(e.to_string()).into())
 }
 
+fn run_reset(model: &str, config: &Path) -> anyhow::Result<()> {
+    let config = load_config(config)?;
+    if !config.models.iter().any(|m| m.name == model) {
+        let names: Vec<_> = config.models.iter().map(|m| m.name.as_str()).collect();
+        return Err(UsageError(format!(
+            "no model {model:?} in {} (models: {})",
+            config.file.display(),
+            names.join(", ")
+        ))
+        .into());
+    }
+    let mut store = riskbound::window::Store::open(&config.state_dir)
+        .with_context(|| format!("opening the state in {}", config.state_dir.display()))?;
+    let now = std::time::SystemTime::now().duration_since(std::time::UNIX_EPOCH).map_or(0, |d| d.as_millis() as i64);
+    store.reset(model, now).context("writing the reset")?;
+    println!("{model}: anytime sequences and alarms restart from the next label");
+    Ok(())
+}
+
 fn run_daemon(a: &RunArgs) -> anyhow::Result<()> {
     let config = load_config(&a.config)?;
     init_logs(&a.log_format);
@@ -302,6 +332,7 @@ fn main() -> ExitCode {
         Command::Bound(a) => run_bound(a),
         Command::Track(a) => run_track(a),
         Command::Run(a) => run_daemon(a),
+        Command::Reset { model, config } => run_reset(model, config),
         Command::CheckConfig { file } => load_config(file).map(|c| print!("{}", c.describe())),
         Command::Demo(a) => {
             init_logs("human");

@@ -88,7 +88,8 @@ fn sequences_match_confseq_on_seeded_streams() {
         let name = s["name"].as_str().unwrap();
         let x = floats(&s["x"]);
         let states = replay(&x, delta, 1000);
-        let checks: Vec<usize> = s["checkpoints"].as_array().unwrap().iter().map(|c| c.as_u64().unwrap() as usize).collect();
+        let checks: Vec<usize> =
+            s["checkpoints"].as_array().unwrap().iter().map(|c| c.as_u64().unwrap() as usize).collect();
         for (i, &t) in checks.iter().enumerate() {
             let st = &states[t - 1];
             let at = |key: &str| s[key][i].as_f64().unwrap();
@@ -100,8 +101,16 @@ fn sequences_match_confseq_on_seeded_streams() {
             // Source: confseq.betting.betting_cs(alpha = 2δ, breaks = 1000): the same grid, so the
             // same grid point (equal at every checkpoint when this was written).
             let bet = st.bounds(Sequence::BettingCs);
-            assert!((bet.lower - at("betting_lower")).abs() <= 1e-12, "{name} t={t}: betting lower {bet:?} vs {}", at("betting_lower"));
-            assert!((bet.upper - at("betting_upper")).abs() <= 1e-12, "{name} t={t}: betting upper {bet:?} vs {}", at("betting_upper"));
+            assert!(
+                (bet.lower - at("betting_lower")).abs() <= 1e-12,
+                "{name} t={t}: betting lower {bet:?} vs {}",
+                at("betting_lower")
+            );
+            assert!(
+                (bet.upper - at("betting_upper")).abs() <= 1e-12,
+                "{name} t={t}: betting upper {bet:?} vs {}",
+                at("betting_upper")
+            );
             // Source: confseq.boundaries.poly_stitching_bound(t/4, δ, 25, 0) around the mean.
             let h = st.bounds(Sequence::HoeffdingCs);
             assert!((h.lower - at("hoeffding_stitched_lower")).abs() < 1e-12, "{name} t={t}: hoeffding lower {h:?}");

@@ -83,8 +83,8 @@ fn window(w: &str) -> [(&str, &str); 2] {
     [("model", "courier"), ("window", w)]
 }
 
-fn with_method<'a>(w: &'a str, m: &'a str) -> [(&'a str, &'a str); 3] {
-    [("model", "courier"), ("window", w), ("method", m)]
+fn with_method<'a>(w: &'a str, m: &'a str) -> [(&'a str, &'a str); 4] {
+    [("model", "courier"), ("window", w), ("method", m), ("guarantee", "per-window")]
 }
 
 fn close(a: f64, b: f64) -> bool {

@@ -23,7 +23,7 @@ use crate::estimate::Confidence;
 use crate::ingest::DecodeError;
 
 /// The change detector's horizon when none is given: P(false alarm in the first 10^5 rows) ≤ δ.
-pub const DEFAULT_CHANGE_HORIZON: u64 = 100_000;
+pub use crate::config::DEFAULT_CHANGE_HORIZON;
 
 /// Validated settings for one replay.
 #[derive(Clone, Debug)]

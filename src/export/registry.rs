@@ -11,6 +11,7 @@ use prometheus_client::metrics::gauge::ConstGauge;
 use prometheus_client::metrics::MetricType;
 use prometheus_client::registry::Registry;
 
+use crate::config::SINCE_RESET;
 use crate::estimate::sla::SlaState;
 use crate::ingest::records::RejectReason;
 use crate::window::store::DELAY_BUCKETS;
@@ -50,7 +51,16 @@ pub mod names {
     pub const BUILD_INFO: &str = "riskbound_build_info";
     pub const WRITE_FAILURES: &str = "riskbound_state_write_failures";
     pub const UNWRITABLE: &str = "riskbound_state_unwritable";
+    pub const ALARM_EVIDENCE: &str = "riskbound_alarm_log_evidence";
+    pub const ALARM_THRESHOLD: &str = "riskbound_alarm_log_threshold";
+    pub const ALARM_FIRING: &str = "riskbound_alarm_firing";
+    pub const ALARM_MAX_RISK: &str = "riskbound_alarm_max_risk";
+    pub const RESET_TIME: &str = "riskbound_anytime_reset_timestamp_seconds";
+    pub const RESETS: &str = "riskbound_anytime_resets";
 }
+
+/// The `guarantee` label value of the anytime sequences: valid at every label at once.
+pub const ANYTIME: &str = "anytime";
 
 type Labels = Vec<(&'static str, String)>;
 
@@ -99,38 +109,82 @@ impl Collector for SnapshotCollector {
         let mw = |m: &str, w: &str| -> Labels { vec![("model", m.to_string()), ("window", w.to_string())] };
         let per_method = |upper: bool| {
             let mut v = Vec::new();
+            let pick = |b: &crate::estimate::Bounds| if upper { b.upper } else { b.lower };
             for m in &snap.models {
                 for w in &m.windows {
                     for (method, b) in &w.bounds {
                         let mut l = mw(&m.name, &w.name);
                         l.push(("method", method.name().to_string()));
-                        v.push((l, if upper { b.upper } else { b.lower }));
+                        l.push(("guarantee", m.window_guarantee.as_str().to_string()));
+                        v.push((l, pick(b)));
                     }
+                }
+                for (seq, b) in &m.anytime.bounds {
+                    let mut l = mw(&m.name, SINCE_RESET);
+                    l.push(("method", seq.name().to_string()));
+                    l.push(("guarantee", ANYTIME.to_string()));
+                    v.push((l, pick(b)));
                 }
             }
             v
         };
-        gauges(e, names::UPPER, "Upper confidence bound on the window's true risk: the risk is at or below it with probability at least the bound confidence", per_method(true))?;
-        gauges(e, names::LOWER, "Lower confidence bound on the window's true risk: the risk is at or above it with probability at least the bound confidence", per_method(false))?;
-        let per_window = |f: &dyn Fn(&crate::window::WindowSnapshot) -> f64| {
+        gauges(e, names::UPPER, "Upper confidence bound on the true risk. guarantee=\"per-window\": each published value on its own holds with probability at least the bound confidence; \"spent\": all published values together do; \"anytime\" (window=\"since-reset\"): the bound holds at every label since the reset at once, assuming a constant risk", per_method(true))?;
+        gauges(e, names::LOWER, "Lower confidence bound on the true risk; guarantee as for the upper bound. An anytime lower bound stays below the highest risk seen since the reset even when the risk drifts", per_method(false))?;
+        let per_window = |f: &dyn Fn(&crate::window::WindowSnapshot) -> f64,
+                          anytime: &dyn Fn(&crate::window::AnytimeSnapshot) -> f64| {
             snap.models
                 .iter()
-                .flat_map(|m| m.windows.iter().map(move |w| (mw(&m.name, &w.name), f(w))))
+                .flat_map(|m| {
+                    m.windows
+                        .iter()
+                        .map(move |w| (mw(&m.name, &w.name), f(w)))
+                        .chain(std::iter::once((mw(&m.name, SINCE_RESET), anytime(&m.anytime))))
+                })
                 .collect::<Vec<_>>()
         };
         gauges(
             e,
             names::OBSERVED,
             "Mean loss of the window's labelled samples (a point estimate, not a bound)",
-            per_window(&|w| w.mean),
+            per_window(&|w| w.mean, &|a| a.mean),
         )?;
-        gauges(e, names::SAMPLES, "Labelled samples in the window", per_window(&|w| w.n as f64))?;
+        gauges(e, names::SAMPLES, "Labelled samples in the window", per_window(&|w| w.n as f64, &|a| a.n as f64))?;
         let model = |m: &str| -> Labels { vec![("model", m.to_string())] };
+        let mg = |m: &str, g: &str| -> Labels { vec![("model", m.to_string()), ("guarantee", g.to_string())] };
         gauges(
             e,
             names::CONFIDENCE,
-            "Confidence of each one-sided bound of the model",
-            snap.models.iter().map(|m| (model(&m.name), m.confidence)),
+            "Confidence of each one-sided bound of the model, by guarantee (with δ spending, the level of the latest evaluation)",
+            snap.models.iter().flat_map(|m| {
+                [(mg(&m.name, m.window_guarantee.as_str()), m.window_confidence), (mg(&m.name, ANYTIME), m.confidence)]
+            }),
+        )?;
+        let mut alarm_series: [Vec<(Labels, f64)>; 4] = Default::default();
+        for m in &snap.models {
+            for a in &m.anytime.alarms {
+                let l = vec![("model", m.name.clone()), ("test", a.test.as_str().to_string())];
+                alarm_series[0].push((l.clone(), a.log_evidence));
+                alarm_series[1].push((l.clone(), a.log_threshold));
+                alarm_series[2].push((l.clone(), f64::from(u8::from(a.fired_at.is_some()))));
+                alarm_series[3].push((l, a.max_risk));
+            }
+        }
+        let [evidence, threshold, firing, max_risk] = alarm_series;
+        gauges(e, names::ALARM_EVIDENCE, "Natural log of the alarm's evidence since the reset: the e-value of \"risk <= max_risk at all times\" (test=exceeded, shift) or the change detector's statistic (test=change)", evidence)?;
+        gauges(e, names::ALARM_THRESHOLD, "The log evidence at which the alarm fires: ln(1/δ) (exceeded, shift: P(ever a false alarm) <= δ) or ln A (change: P(a false alarm in the first change_horizon labels) <= δ)", threshold)?;
+        gauges(e, names::ALARM_FIRING, "1 once the alarm's evidence reached its threshold since the reset (it stays 1 until riskbound reset), else 0. Trust it only while label coverage is at or above the SLA's min_label_coverage", firing)?;
+        gauges(e, names::ALARM_MAX_RISK, "The risk level the alarm tests: the SLA max_risk (exceeded, change) or the reference's upper bound plus tolerance (shift)", max_risk)?;
+        gauges(
+            e,
+            names::RESET_TIME,
+            "Unix time of the anytime sequences' reset point (the first sample, or the last riskbound reset)",
+            snap.models.iter().filter_map(|m| m.anytime.reset_ms.map(|t| (model(&m.name), t as f64 / 1000.0))),
+        )?;
+        counters(
+            e,
+            names::RESETS,
+            "Restarts of the anytime sequences and alarms (riskbound reset, or changed settings)",
+            snap.models.iter().map(|m| (model(&m.name), m.anytime.resets)),
         )?;
         gauges(
             e,
@@ -289,6 +343,16 @@ mod tests {
             loss_max: 1.0,
             sla: None,
             windows: vec![WindowSnapshot { name: "w\"1".into(), n: 3, mean: 0.5, bounds: vec![], state: None }],
+            window_guarantee: crate::config::WindowGuarantee::PerWindow,
+            window_confidence: 0.95,
+            anytime: crate::window::AnytimeSnapshot {
+                n: 0,
+                mean: 0.0,
+                bounds: vec![],
+                alarms: vec![],
+                reset_ms: None,
+                resets: 0,
+            },
             counters: Default::default(),
             awaiting: 0,
             label_coverage: None,

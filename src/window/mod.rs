@@ -6,10 +6,92 @@
 
 pub mod store;
 
-use crate::config::{ModelConfig, SlaConfig};
+use crate::config::{ModelConfig, SlaConfig, WindowGuarantee};
+use crate::estimate::anytime::Sequence;
 use crate::estimate::sla::{self, SlaReason, SlaState};
-use crate::estimate::{self, Bounds, LossSummary, Method};
-pub use store::{Batch, Counters, FileOutcome, Kind, Store, StoreError};
+use crate::estimate::{self, Bounds, Confidence, LossSummary, Method};
+pub use store::{Batch, Counters, FileOutcome, Kind, Store, StoreError, TrackerState};
+
+/// The anytime alarms. The names are the `test` label values.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum AlarmTest {
+    /// The risk exceeded the SLA since the reset (betting e-process).
+    Exceeded,
+    /// The risk exceeded the reference's upper bound + tolerance (harmful shift).
+    Shift,
+    /// The risk rose above the SLA at some point (Shiryaev–Roberts e-detector).
+    Change,
+}
+
+impl AlarmTest {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            AlarmTest::Exceeded => "exceeded",
+            AlarmTest::Shift => "shift",
+            AlarmTest::Change => "change",
+        }
+    }
+}
+
+/// One alarm's evidence.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AlarmSnapshot {
+    pub test: AlarmTest,
+    /// The θ it tests, in loss units.
+    pub max_risk: f64,
+    /// ln of the e-value (exceeded, shift) or of the detector statistic (change).
+    pub log_evidence: f64,
+    /// The level ln(1/δ) (exceeded, shift) or ln A (change) at which it fires.
+    pub log_threshold: f64,
+    /// The label count (since the reset) at which it fired; it stays fired until a reset.
+    pub fired_at: Option<u64>,
+}
+
+/// The anytime-valid view of a model since its reset point.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AnytimeSnapshot {
+    pub n: u64,
+    pub mean: f64,
+    pub bounds: Vec<(Sequence, Bounds)>,
+    pub alarms: Vec<AlarmSnapshot>,
+    pub reset_ms: Option<i64>,
+    pub resets: u64,
+}
+
+impl AnytimeSnapshot {
+    pub fn of(state: &TrackerState) -> AnytimeSnapshot {
+        let t = &state.tracker;
+        let mut alarms = Vec::new();
+        for (test, e) in [(AlarmTest::Exceeded, t.exceeded()), (AlarmTest::Shift, t.shift())] {
+            if let Some(e) = e {
+                alarms.push(AlarmSnapshot {
+                    test,
+                    max_risk: e.theta() * t.spec().loss_max,
+                    log_evidence: e.log_evidence(),
+                    log_threshold: t.log_threshold(),
+                    fired_at: e.alarm_at(),
+                });
+            }
+        }
+        if let Some(c) = t.change() {
+            alarms.push(AlarmSnapshot {
+                test: AlarmTest::Change,
+                max_risk: c.theta() * t.spec().loss_max,
+                log_evidence: c.log_evidence(),
+                log_threshold: c.threshold().ln(),
+                fired_at: c.alarm_at(),
+            });
+        }
+        AnytimeSnapshot {
+            n: t.n(),
+            mean: t.mean(),
+            bounds: if t.n() == 0 { Vec::new() } else { Sequence::ALL.iter().map(|&s| (s, t.bounds(s))).collect() },
+            alarms,
+            reset_ms: state.reset_ms,
+            resets: state.resets,
+        }
+    }
+}
 
 /// One window's numbers.
 #[derive(Clone, Debug)]
@@ -30,6 +112,11 @@ pub struct ModelSnapshot {
     pub loss_max: f64,
     pub sla: Option<SlaConfig>,
     pub windows: Vec<WindowSnapshot>,
+    pub window_guarantee: WindowGuarantee,
+    /// The confidence of each per-window bound at this evaluation (below `confidence` when δ
+    /// is spent over evaluations).
+    pub window_confidence: f64,
+    pub anytime: AnytimeSnapshot,
     pub counters: Counters,
     pub awaiting: u64,
     /// joined / (joined + expired): the fraction of decided predictions that got a label.
@@ -43,8 +130,12 @@ pub struct Snapshot {
     pub models: Vec<ModelSnapshot>,
 }
 
-/// The bounds of a set of losses by every method that applies.
-pub fn window_bounds(losses: &[f64], model: &ModelConfig) -> (LossSummary, Vec<(Method, Bounds)>) {
+/// The bounds of a set of losses by every method that applies, each at `confidence`.
+pub fn window_bounds(
+    losses: &[f64],
+    model: &ModelConfig,
+    confidence: Confidence,
+) -> (LossSummary, Vec<(Method, Bounds)>) {
     let mut s = LossSummary::keeping_losses(model.loss.max());
     for &l in losses {
         s.push(l);
@@ -56,7 +147,7 @@ pub fn window_bounds(losses: &[f64], model: &ModelConfig) -> (LossSummary, Vec<(
             // only when the config says they are binary (never), so series do not come and go.
             let applies = if m == Method::ClopperPearson { model.loss.is_binary() } else { true };
             if applies {
-                if let Ok(b) = estimate::bounds(m, &s, model.confidence) {
+                if let Ok(b) = estimate::bounds(m, &s, confidence) {
                     out.push((m, b));
                 }
             }
@@ -65,15 +156,29 @@ pub fn window_bounds(losses: &[f64], model: &ModelConfig) -> (LossSummary, Vec<(
     (s, out)
 }
 
-/// Computes one model's snapshot from the store.
-pub fn model_snapshot(store: &Store, model: &ModelConfig) -> Result<ModelSnapshot, StoreError> {
+/// Computes one model's snapshot from the store; `evaluation` is the 1-based number of this
+/// evaluation of the window bounds (it matters only when δ is spent).
+pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Result<ModelSnapshot, StoreError> {
+    let delta_k = model.window_guarantee.delta(model.confidence.delta(), evaluation);
+    // 1 − δ_k rounds; never let the rounded δ come out larger than δ_k (that would spend more
+    // than planned). Below 1e-15 (after some 10^7 evaluations) the budget is spent out: no
+    // per-window bound is published, rather than one at a level the budget cannot pay for.
+    let spent_out = delta_k < 1e-15;
+    let mut c = 1.0 - delta_k.max(1e-15);
+    if 1.0 - c > delta_k.max(1e-15) {
+        c += f64::EPSILON / 2.0;
+    }
+    let window_confidence = Confidence::new(c).unwrap_or(model.confidence);
     let counters = store.counters(&model.name)?;
     let decided = counters.joined + counters.expired;
     let label_coverage = (decided > 0).then(|| counters.joined as f64 / decided as f64);
     let mut windows = Vec::with_capacity(model.windows.len());
     for w in &model.windows {
         let losses = store.window_losses(&model.name, w.kind)?;
-        let (summary, bounds) = window_bounds(&losses, model);
+        let (summary, mut bounds) = window_bounds(&losses, model, window_confidence);
+        if spent_out {
+            bounds.clear();
+        }
         let state = model.sla.as_ref().map(|sla| match bounds.iter().find(|(m, _)| *m == sla.method) {
             Some((_, b)) => {
                 sla::decide(*b, summary.n(), sla.max_risk, sla.min_samples, label_coverage, sla.min_label_coverage)
@@ -88,6 +193,9 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig) -> Result<ModelSnapsho
         loss_max: model.loss.max(),
         sla: model.sla.clone(),
         windows,
+        window_guarantee: model.window_guarantee,
+        window_confidence: window_confidence.level(),
+        anytime: AnytimeSnapshot::of(&store.tracker(model)?),
         awaiting: store.awaiting(&model.name)?,
         label_coverage,
         last_commit_ms: store.last_commit_ms(&model.name)?,

@@ -12,6 +12,7 @@ use std::path::Path;
 use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
 
 use crate::config::{ModelConfig, WindowKind};
+use crate::estimate::anytime::Tracker;
 use crate::ingest::records::{Record, Reject, RejectReason};
 use crate::loss::{self, LossSpec};
 
@@ -41,6 +42,8 @@ pub const DELAY_BUCKETS: [f64; 12] =
 pub enum StoreError {
     #[error("state database: {0}")]
     Sql(#[from] rusqlite::Error),
+    #[error("state database: stored anytime state of model {model} does not parse: {reason}")]
+    Tracker { model: String, reason: String },
 }
 
 impl StoreError {
@@ -68,6 +71,25 @@ pub struct FileOutcome {
     pub first_reject: Option<Reject>,
     /// Labelled samples this file completed.
     pub joined: u64,
+    /// The stored anytime state was made for other settings (confidence, SLA, reference) and
+    /// was restarted from this file on.
+    pub tracker_restarted: bool,
+}
+
+/// A model's anytime state as stored: the tracker, when its reset point was, how many resets.
+#[derive(Clone, Debug, PartialEq)]
+pub struct TrackerState {
+    pub tracker: Tracker,
+    /// Wall-clock ms of the reset point: the first sample, or the last reset.
+    pub reset_ms: Option<i64>,
+    pub resets: u64,
+}
+
+/// The samples one file completed, in the order they were joined.
+#[derive(Default)]
+struct Joins {
+    delays: Vec<f64>,
+    losses: Vec<f64>,
 }
 
 /// The counters of one model, as exported.
@@ -129,6 +151,8 @@ CREATE TABLE IF NOT EXISTS counter (
     PRIMARY KEY (model, name));
 CREATE TABLE IF NOT EXISTS model_meta (
     model TEXT PRIMARY KEY, watermark INTEGER, last_commit_ms INTEGER);
+CREATE TABLE IF NOT EXISTS tracker (
+    model TEXT PRIMARY KEY, state TEXT, reset_ms INTEGER, resets INTEGER NOT NULL DEFAULT 0);
 ";
 
 const AWAITING: i64 = 0;
@@ -258,7 +282,7 @@ impl Store {
             .optional()?
             .flatten()
             .unwrap_or(i64::MIN);
-        let mut delays: Vec<f64> = Vec::new();
+        let mut joins = Joins::default();
         // Most predictions have no early label; skip the per-row lookup when none is held.
         let mut orphans_held: bool =
             tx.query_row("SELECT EXISTS (SELECT 1 FROM orphan WHERE model = ?1)", [m], |r| r.get(0))?;
@@ -286,8 +310,8 @@ impl Store {
                 continue;
             }
             let result = match kind {
-                Kind::Prediction => Self::take_prediction(&tx, model, rec, orphans_held, &mut delays)?,
-                Kind::Label => Self::take_label(&tx, model, rec, &mut orphans_held, &mut delays)?,
+                Kind::Prediction => Self::take_prediction(&tx, model, rec, orphans_held, &mut joins)?,
+                Kind::Label => Self::take_label(&tx, model, rec, &mut orphans_held, &mut joins)?,
             };
             match result {
                 Ok(joined) => {
@@ -316,7 +340,8 @@ impl Store {
             tx.prepare_cached("DELETE FROM pred WHERE model = ?1 AND state IN (?2, ?3) AND t_pred < ?4")?
                 .execute(params![m, LABELLED, EXPIRED, cutoff.saturating_sub(model.label_wait_ms)])?;
         }
-        for d in &delays {
+        let delays = &joins.delays;
+        for d in delays {
             let i = DELAY_BUCKETS.iter().position(|b| d <= b).unwrap_or(DELAY_BUCKETS.len());
             bump(&tx, m, &format!("delay_bucket_{i}"), 1.0)?;
         }
@@ -340,6 +365,7 @@ impl Store {
             params![m, if watermark == i64::MIN { None } else { Some(watermark) }, now_ms],
         )?;
         Self::prune_samples(&tx, model)?;
+        out.tracker_restarted = Self::advance_tracker(&tx, model, &joins.losses, now_ms)?;
         tx.commit()?;
         Ok(out)
     }
@@ -351,10 +377,108 @@ impl Store {
         t_pred: i64,
         t_label: i64,
         loss: f64,
+        joins: &mut Joins,
     ) -> rusqlite::Result<()> {
         tx.prepare_cached("INSERT INTO sample (model, id, t_pred, t_label, loss) VALUES (?1, ?2, ?3, ?4, ?5)")?
             .execute(params![model, id, t_pred, t_label, loss])?;
+        joins.delays.push(((t_label - t_pred).max(0) as f64) / 1000.0);
+        joins.losses.push(loss);
         bump(tx, model, "samples_kept", 1.0)
+    }
+
+    /// The stored tracker row: (state JSON or NULL after a reset, reset_ms, resets).
+    fn tracker_row(tx: &Connection, model: &str) -> rusqlite::Result<Option<(Option<String>, Option<i64>, u64)>> {
+        tx.prepare_cached("SELECT state, reset_ms, resets FROM tracker WHERE model = ?1")?
+            .query_row([model], |r| Ok((r.get(0)?, r.get(1)?, r.get::<_, i64>(2)? as u64)))
+            .optional()
+    }
+
+    /// The stored state if it was made for the configured spec; `Ok(None)` when there is none,
+    /// it was reset, or it was made for other settings (the bool says which of the last).
+    fn stored_tracker(tx: &Connection, model: &ModelConfig) -> Result<(Option<TrackerState>, bool), StoreError> {
+        let Some((state, reset_ms, resets)) = Self::tracker_row(tx, &model.name)? else { return Ok((None, false)) };
+        let fresh = TrackerState { tracker: Tracker::new(model.tracker_spec()), reset_ms, resets };
+        let Some(text) = state else { return Ok((Some(fresh), false)) };
+        let tracker: Tracker = serde_json::from_str(&text)
+            .map_err(|e| StoreError::Tracker { model: model.name.clone(), reason: e.to_string() })?;
+        if *tracker.spec() != model.tracker_spec() {
+            return Ok((None, true));
+        }
+        Ok((Some(TrackerState { tracker, reset_ms, resets }), false))
+    }
+
+    /// Feeds the file's new samples, in join order, to the model's anytime tracker, inside the
+    /// file's transaction: a kill at any point leaves the tracker exactly in step with the
+    /// samples. Returns true when stored state for other settings was restarted.
+    fn advance_tracker(tx: &Connection, model: &ModelConfig, losses: &[f64], now_ms: i64) -> Result<bool, StoreError> {
+        if losses.is_empty() {
+            return Ok(false);
+        }
+        let (stored, mismatched) = Self::stored_tracker(tx, model)?;
+        let (mut state, restarted) = match stored {
+            Some(s) => (s, false),
+            None => {
+                let resets = Self::tracker_row(tx, &model.name)?.map_or(0, |r| r.2);
+                let state = TrackerState {
+                    tracker: Tracker::new(model.tracker_spec()),
+                    reset_ms: None,
+                    resets: resets + u64::from(mismatched),
+                };
+                (state, mismatched)
+            }
+        };
+        for &l in losses {
+            state.tracker.push(l);
+        }
+        let text = serde_json::to_string(&state.tracker)
+            .map_err(|e| StoreError::Tracker { model: model.name.clone(), reason: e.to_string() })?;
+        tx.prepare_cached(
+            "INSERT INTO tracker (model, state, reset_ms, resets) VALUES (?1, ?2, ?3, ?4)
+             ON CONFLICT (model) DO UPDATE SET state = excluded.state, reset_ms = excluded.reset_ms, resets = excluded.resets",
+        )?
+        .execute(params![model.name, text, state.reset_ms.unwrap_or(now_ms), state.resets as i64])?;
+        Ok(restarted)
+    }
+
+    /// The model's anytime state as the next sample would find it (fresh if there is none,
+    /// after a reset, or when the stored one was made for other settings).
+    pub fn tracker(&self, model: &ModelConfig) -> Result<TrackerState, StoreError> {
+        let (stored, _) = Self::stored_tracker(&self.conn, model)?;
+        Ok(stored.unwrap_or_else(|| TrackerState {
+            tracker: Tracker::new(model.tracker_spec()),
+            reset_ms: None,
+            resets: Self::tracker_row(&self.conn, &model.name).ok().flatten().map_or(0, |r| r.2),
+        }))
+    }
+
+    /// Starts the model's anytime sequences and alarms afresh from the next sample (a model was
+    /// redeployed, or an alarm was handled). Safe while the daemon runs: the daemon reads the
+    /// stored state inside each file's transaction.
+    pub fn reset(&mut self, model: &str, now_ms: i64) -> Result<(), StoreError> {
+        let tx = self.conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+        tx.execute(
+            "INSERT INTO tracker (model, state, reset_ms, resets) VALUES (?1, NULL, ?2, 1)
+             ON CONFLICT (model) DO UPDATE SET state = NULL, reset_ms = ?2, resets = resets + 1",
+            params![model, now_ms],
+        )?;
+        tx.commit()?;
+        Ok(())
+    }
+
+    /// The sum of every model's reset count: the pipeline republishes when it moves.
+    pub fn resets_total(&self) -> Result<u64, StoreError> {
+        Ok(self.conn.query_row("SELECT COALESCE(SUM(resets), 0) FROM tracker", [], |r| r.get::<_, i64>(0))? as u64)
+    }
+
+    /// Counts one more evaluation of the model's window bounds and returns its number k
+    /// (1-based), for δ spending. Durable, so k never restarts and Σ δ_k stays ≤ δ.
+    pub fn next_evaluation(&mut self, model: &str) -> Result<u64, StoreError> {
+        let tx = self.conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+        bump(&tx, model, "evaluations", 1.0)?;
+        let k: f64 =
+            tx.query_row("SELECT value FROM counter WHERE model = ?1 AND name = 'evaluations'", [model], |r| r.get(0))?;
+        tx.commit()?;
+        Ok(k as u64)
     }
 
     /// A prediction: rejected if its id was seen, joined at once if its label came first.
@@ -363,7 +487,7 @@ impl Store {
         model: &ModelConfig,
         rec: &Record,
         orphans_held: bool,
-        delays: &mut Vec<f64>,
+        joins: &mut Joins,
     ) -> rusqlite::Result<Result<bool, RejectReason>> {
         let m = model.name.as_str();
         let orphan: Option<(i64, String)> = if orphans_held {
@@ -399,8 +523,7 @@ impl Store {
         }
         match (joined, &orphan) {
             (Some((t_label, _, l)), _) => {
-                Self::insert_sample(tx, m, &rec.id, rec.time_ms, t_label, l)?;
-                delays.push(((t_label - rec.time_ms).max(0) as f64) / 1000.0);
+                Self::insert_sample(tx, m, &rec.id, rec.time_ms, t_label, l, joins)?;
                 Ok(Ok(true))
             }
             (None, Some(_)) => {
@@ -419,7 +542,7 @@ impl Store {
         model: &ModelConfig,
         rec: &Record,
         orphans_held: &mut bool,
-        delays: &mut Vec<f64>,
+        joins: &mut Joins,
     ) -> rusqlite::Result<Result<bool, RejectReason>> {
         let m = model.name.as_str();
         // The common case in one statement: a waiting prediction within label_wait.
@@ -436,8 +559,7 @@ impl Store {
         if let Some((t_pred, value)) = waiting {
             // Both cells were validated when their rows arrived, so the loss exists.
             let l = loss_of(&model.loss, &value, &rec.value).unwrap_or(model.loss.max());
-            Self::insert_sample(tx, m, &rec.id, t_pred, rec.time_ms, l)?;
-            delays.push(((rec.time_ms - t_pred).max(0) as f64) / 1000.0);
+            Self::insert_sample(tx, m, &rec.id, t_pred, rec.time_ms, l, joins)?;
             return Ok(Ok(true));
         }
         let same = |old: &str| {

@@ -153,6 +153,7 @@ pub fn model_config() -> ModelConfig {
         label_wait_ms: WAIT_MS,
         future_tolerance_ms: i64::MAX / 4,
         windows: vec![WindowConfig { name: "all".into(), kind: WindowKind::Last(u64::MAX / 4) }],
+        window_guarantee: riskbound::config::WindowGuarantee::PerWindow,
         sla: None,
     }
 }

@@ -1,0 +1,239 @@
+//! The anytime sequences and alarms in the daemon: durable through kill -9 (the state after
+//! every file is exactly what an uninterrupted replay gives), reset while running, restarted
+//! when the settings change, and the harmful-shift threshold taken from a reference file.
+
+mod common;
+
+use common::{bin, free_port, simple_config, Daemon, Metrics, TempDir};
+use riskbound::estimate::anytime::evidence::ChangeDetector;
+use riskbound::estimate::anytime::sequence::HoeffdingBoundary;
+use riskbound::estimate::anytime::{Sequence, Tracker, TrackerSpec, DEFAULT_GRID};
+use serde_json::Value;
+
+const T: i64 = 1_790_000_000;
+const ROWS: usize = 200;
+
+/// Batch `b`: predictions and labels of ROWS requests; wrong with probability `rate`.
+fn batch(b: usize, rate: f64, state: &mut u64) -> (String, String, Vec<f64>) {
+    let mut pred = String::from("id,t,p\n");
+    let mut label = String::from("id,t,y\n");
+    let mut losses = Vec::new();
+    for i in 0..ROWS {
+        *state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+        let wrong = ((*state >> 11) as f64 / (1u64 << 53) as f64) < rate;
+        let t = T + (b * ROWS + i) as i64;
+        pred += &format!("b{b}r{i},{t},1\n");
+        label += &format!("b{b}r{i},{},{}\n", t + 60, if wrong { 0 } else { 1 });
+        losses.push(f64::from(u8::from(wrong)));
+    }
+    (pred, label, losses)
+}
+
+fn since_reset<'a>(method: &'a str) -> [(&'a str, &'a str); 4] {
+    [("model", "m"), ("window", "since-reset"), ("method", method), ("guarantee", "anytime")]
+}
+
+fn alarm<'a>(test: &'a str) -> [(&'a str, &'a str); 2] {
+    [("model", "m"), ("test", test)]
+}
+
+fn spec(max_risk: f64) -> TrackerSpec {
+    TrackerSpec {
+        // What the daemon's confidence 0.95 means: δ = 1 − 0.95 in floating point.
+        delta: 1.0 - 0.95,
+        loss_max: 1.0,
+        grid: DEFAULT_GRID,
+        hoeffding_boundary: HoeffdingBoundary::Stitched,
+        sla_max_risk: Some(max_risk),
+        shift_max_risk: None,
+        change: Some((max_risk, ChangeDetector::threshold_for(100_000, 1.0 - 0.95))),
+    }
+}
+
+/// Every anytime number the daemon exports equals the replay's, to the last bit printed.
+fn assert_matches(m: &Metrics, t: &Tracker) {
+    let samples = m.get("riskbound_window_samples", &[("model", "m"), ("window", "since-reset")]);
+    assert_eq!(samples, Some(t.n() as f64));
+    for s in Sequence::ALL {
+        let b = t.bounds(s);
+        assert_eq!(m.get("riskbound_risk_lower_bound", &since_reset(s.name())), Some(b.lower), "{s} lower");
+        assert_eq!(m.get("riskbound_risk_upper_bound", &since_reset(s.name())), Some(b.upper), "{s} upper");
+    }
+    let e = t.exceeded().unwrap();
+    assert_eq!(m.get("riskbound_alarm_log_evidence", &alarm("exceeded")), Some(e.log_evidence()));
+    assert_eq!(m.get("riskbound_alarm_firing", &alarm("exceeded")), Some(f64::from(u8::from(e.alarm_at().is_some()))));
+    let c = t.change().unwrap();
+    assert_eq!(m.get("riskbound_alarm_log_evidence", &alarm("change")), Some(c.log_evidence()));
+    assert_eq!(m.get("riskbound_alarm_firing", &alarm("change")), Some(f64::from(u8::from(c.alarm_at().is_some()))));
+}
+
+#[test]
+fn anytime_state_resumes_exactly_after_kill_9() {
+    let dir = TempDir::new("anytime-kill");
+    let port = free_port();
+    let model = "    label_wait: 1d\n    sla: { max_risk: 0.2 }";
+    let cfg = simple_config(&dir, port, "rescan_interval: 100ms", "m", model, "[{ name: all, last: 100000 }]");
+    let mut replay = Tracker::new(spec(0.2));
+    let mut rng = 99u64;
+    let mut daemon = Daemon::start(&cfg, port);
+    let mut kills = 0;
+    for b in 0..16 {
+        // The risk steps from 0.1 to 0.5 at batch 8: the change alarm must fire, kills or not.
+        let (pred, label, losses) = batch(b, if b < 8 { 0.1 } else { 0.5 }, &mut rng);
+        dir.drop_file(&format!("pred-{b:03}.csv"), &pred);
+        daemon.wait_files("m", "prediction", (b + 1) as f64);
+        dir.drop_file(&format!("label-{b:03}.csv"), &label);
+        if b % 3 == 1 {
+            // Killed at once: before, during or just after the label file's transaction.
+            std::thread::sleep(std::time::Duration::from_millis(5 * (b as u64 % 4)));
+            daemon.kill9();
+            kills += 1;
+            daemon = Daemon::start(&cfg, port);
+        }
+        daemon.wait_files("m", "label", (b + 1) as f64);
+        for l in losses {
+            replay.push(l);
+        }
+        assert_matches(&daemon.metrics(), &replay);
+    }
+    assert!(kills >= 5);
+    // The change detector fires after the step; "exceeded since reset" still owes the evidence
+    // of 1600 healthy labels (METHODS.md §2.7), which is why both exist.
+    assert!(replay.change().unwrap().alarm_at().is_some_and(|t| t > 1600), "{:?}", replay.change());
+    // A clean stop and start changes nothing either.
+    assert!(daemon.terminate().success());
+    let daemon = Daemon::start(&cfg, port);
+    assert_matches(&daemon.metrics(), &replay);
+}
+
+#[test]
+fn reset_restarts_the_sequences_while_the_daemon_runs() {
+    let dir = TempDir::new("anytime-reset");
+    let port = free_port();
+    let model = "    label_wait: 1d\n    sla: { max_risk: 0.2 }";
+    let cfg = simple_config(&dir, port, "rescan_interval: 100ms", "m", model, "[{ name: all, last: 100000 }]");
+    let daemon = Daemon::start(&cfg, port);
+    let mut rng = 5u64;
+    let (pred, label, _) = batch(0, 0.5, &mut rng);
+    dir.drop_file("pred-000.csv", &pred);
+    dir.drop_file("label-000.csv", &label);
+    daemon.wait_files("m", "label", 1.0);
+    let m = daemon.metrics();
+    assert_eq!(m.get("riskbound_alarm_firing", &alarm("exceeded")), Some(1.0), "a risk of 0.5 against 0.2 fires");
+
+    let out =
+        std::process::Command::new(bin()).args(["reset", "m", "--config", cfg.to_str().unwrap()]).output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    daemon.wait_until(std::time::Duration::from_secs(10), |d| {
+        d.metrics().get("riskbound_anytime_resets_total", &[("model", "m")]) == Some(1.0)
+    });
+    let m = daemon.metrics();
+    assert_eq!(m.get("riskbound_window_samples", &[("model", "m"), ("window", "since-reset")]), Some(0.0));
+    assert_eq!(m.get("riskbound_alarm_firing", &alarm("exceeded")), Some(0.0));
+    assert_eq!(m.get("riskbound_window_samples", &[("model", "m"), ("window", "all")]), Some(ROWS as f64));
+
+    let (pred, label, losses) = batch(1, 0.05, &mut rng);
+    dir.drop_file("pred-001.csv", &pred);
+    dir.drop_file("label-001.csv", &label);
+    daemon.wait_files("m", "label", 2.0);
+    let mut replay = Tracker::new(spec(0.2));
+    for l in losses {
+        replay.push(l);
+    }
+    assert_matches(&daemon.metrics(), &replay);
+
+    let out =
+        std::process::Command::new(bin()).args(["reset", "nope", "--config", cfg.to_str().unwrap()]).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("no model \"nope\""));
+}
+
+#[test]
+fn changed_settings_restart_the_sequences_and_say_so() {
+    let dir = TempDir::new("anytime-respec");
+    let port = free_port();
+    let windows = "[{ name: all, last: 100000 }]";
+    let cfg = simple_config(
+        &dir,
+        port,
+        "rescan_interval: 100ms",
+        "m",
+        "    label_wait: 1d\n    sla: { max_risk: 0.2 }",
+        windows,
+    );
+    let mut rng = 7u64;
+    let daemon = Daemon::start(&cfg, port);
+    let (pred, label, _) = batch(0, 0.1, &mut rng);
+    dir.drop_file("pred-000.csv", &pred);
+    dir.drop_file("label-000.csv", &label);
+    daemon.wait_files("m", "label", 1.0);
+    assert!(daemon.terminate().success());
+
+    let cfg = simple_config(
+        &dir,
+        port,
+        "rescan_interval: 100ms",
+        "m",
+        "    label_wait: 1d\n    sla: { max_risk: 0.3 }",
+        windows,
+    );
+    let daemon = Daemon::start(&cfg, port);
+    let (pred, label, losses) = batch(1, 0.1, &mut rng);
+    dir.drop_file("pred-001.csv", &pred);
+    dir.drop_file("label-001.csv", &label);
+    daemon.wait_files("m", "label", 2.0);
+    let mut replay = Tracker::new(spec(0.3));
+    for l in losses {
+        replay.push(l);
+    }
+    assert_matches(&daemon.metrics(), &replay);
+    assert!(daemon.log_text().contains("anytime sequences and alarms restarted"), "{}", daemon.log_text());
+}
+
+#[test]
+fn shift_threshold_is_the_reference_upper_bound_plus_tolerance() {
+    let dir = TempDir::new("anytime-shift");
+    let port = free_port();
+    // 100 validation rows, 12 wrong: scipy's Clopper-Pearson bounds for (n, k) = (100, 12) are
+    // in the bounds fixture.
+    let mut reference = String::from("p,y\n");
+    for i in 0..100 {
+        reference += if [3, 8, 15, 22, 41, 47, 56, 60, 71, 77, 85, 98].contains(&i) { "1,0\n" } else { "1,1\n" };
+    }
+    std::fs::write(dir.path("validation.csv"), reference).unwrap();
+    let model = "    label_wait: 1d\n    sla:\n      max_risk: 0.2\n      reference: { file: validation.csv, columns: { prediction: p, label: y }, tolerance: 0.03, confidence: 0.95 }";
+    let cfg = simple_config(&dir, port, "rescan_interval: 100ms", "m", model, "[{ name: all, last: 1000 }]");
+    let text =
+        std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/bounds_fixture.json")).unwrap();
+    let fx: Value = serde_json::from_str(&text).unwrap();
+    let case = fx["clopper_pearson"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|c| c["n"] == 100 && c["k"] == 12 && c["confidence"] == 0.95)
+        .unwrap();
+    // Source: scipy.stats.beta.ppf via the fixture.
+    let upper = case["upper"].as_f64().unwrap();
+
+    let out = std::process::Command::new(bin()).args(["check-config", cfg.to_str().unwrap()]).output().unwrap();
+    let printed = String::from_utf8_lossy(&out.stdout);
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(printed.contains(&format!("upper {upper:.6}")), "{printed}");
+    assert!(printed.contains("false alarm probability <= 1.000e-1"), "δ_S + δ_T = 0.05 + 0.05:\n{printed}");
+
+    let daemon = Daemon::start(&cfg, port);
+    let mut rng = 3u64;
+    let (pred, label, _) = batch(0, 0.1, &mut rng);
+    dir.drop_file("pred-000.csv", &pred);
+    dir.drop_file("label-000.csv", &label);
+    daemon.wait_files("m", "label", 1.0);
+    let got = daemon.metrics().get("riskbound_alarm_max_risk", &alarm("shift")).unwrap();
+    assert!((got - (upper + 0.03)).abs() <= 1e-12, "{got} vs {}", upper + 0.03);
+
+    // A bad reference row is a located config error, before anything binds.
+    std::fs::write(dir.path("validation.csv"), "p,y\n1,1\n1\n").unwrap();
+    let out = std::process::Command::new(bin()).args(["check-config", cfg.to_str().unwrap()]).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("sla.reference.file") && err.contains("validation.csv:3"), "{err}");
+}
