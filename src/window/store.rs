@@ -85,6 +85,9 @@ pub struct TrackerState {
     pub resets: u64,
 }
 
+/// A stored tracker row: (state JSON, or NULL after a reset; reset_ms; resets).
+type TrackerRow = (Option<String>, Option<i64>, u64);
+
 /// The samples one file completed, in the order they were joined.
 #[derive(Default)]
 struct Joins {
@@ -387,7 +390,7 @@ impl Store {
     }
 
     /// The stored tracker row: (state JSON or NULL after a reset, reset_ms, resets).
-    fn tracker_row(tx: &Connection, model: &str) -> rusqlite::Result<Option<(Option<String>, Option<i64>, u64)>> {
+    fn tracker_row(tx: &Connection, model: &str) -> rusqlite::Result<Option<TrackerRow>> {
         tx.prepare_cached("SELECT state, reset_ms, resets FROM tracker WHERE model = ?1")?
             .query_row([model], |r| Ok((r.get(0)?, r.get(1)?, r.get::<_, i64>(2)? as u64)))
             .optional()
