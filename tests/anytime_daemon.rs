@@ -29,11 +29,11 @@ fn batch(b: usize, rate: f64, state: &mut u64) -> (String, String, Vec<f64>) {
     (pred, label, losses)
 }
 
-fn since_reset<'a>(method: &'a str) -> [(&'a str, &'a str); 4] {
+fn since_reset(method: &str) -> [(&str, &str); 4] {
     [("model", "m"), ("window", "since-reset"), ("method", method), ("guarantee", "anytime")]
 }
 
-fn alarm<'a>(test: &'a str) -> [(&'a str, &'a str); 2] {
+fn alarm(test: &str) -> [(&str, &str); 2] {
     [("model", "m"), ("test", test)]
 }
 
