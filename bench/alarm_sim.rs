@@ -134,7 +134,12 @@ fn main() {
     println!("| rule | P(any false alarm) within 2,000 labels | within 20,000 labels |");
     println!("|---|---|---|");
     for i in 0..8 {
-        println!("| {} | {:.3} | {:.3} |", NAMES[i], fa_short[i] as f64 / streams as f64, fa_long[i] as f64 / streams as f64);
+        println!(
+            "| {} | {:.3} | {:.3} |",
+            NAMES[i],
+            fa_short[i] as f64 / streams as f64,
+            fa_long[i] as f64 / streams as f64
+        );
     }
 
     // Part B: a step change.

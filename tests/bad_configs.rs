@@ -139,6 +139,48 @@ const CASES: &[(&str, &str, &str, u64, &str)] = &[
     ("rescan without unit", "rescan_interval: 30s", "rescan_interval: 30", 3, "rescan_interval"),
     ("max_row_bytes too small", "max_row_bytes: 1048576", "max_row_bytes: 10", 4, "max_row_bytes"),
     ("future_tolerance negative", "future_tolerance: 1d", "future_tolerance: -1d", 5, "future_tolerance"),
+    (
+        "reserved window name",
+        "{ name: day, span: 24h }",
+        "{ name: since-reset, span: 24h }",
+        21,
+        "models[0].windows[1].name",
+    ),
+    (
+        "unknown window guarantee",
+        "    label_wait: 7d\n",
+        "    label_wait: 7d\n    window_guarantee: sometimes\n",
+        19,
+        "models[0].window_guarantee",
+    ),
+    (
+        "change_horizon 0",
+        "min_samples: 30 }",
+        "min_samples: 30, change_horizon: 0 }",
+        22,
+        "models[0].sla.change_horizon",
+    ),
+    (
+        "reference file missing",
+        "min_samples: 30 }",
+        "min_samples: 30, reference: { file: nope.csv, columns: { prediction: p, label: y }, tolerance: 0.02 } }",
+        22,
+        "models[0].sla.reference.file",
+    ),
+    (
+        "reference tolerance negative",
+        "min_samples: 30 }",
+        "min_samples: 30, reference: { file: nope.csv, columns: { prediction: p, label: y }, tolerance: -0.02 } }",
+        22,
+        "models[0].sla.reference.tolerance",
+    ),
+    (
+        "reference without a label column",
+        "min_samples: 30 }",
+        "min_samples: 30, reference: { file: nope.csv, columns: { prediction: p }, tolerance: 0.02 } }",
+        22,
+        "models[0].sla.reference.columns",
+    ),
 ];
 
 #[test]
