@@ -39,6 +39,12 @@ enum Command {
         #[arg(long, value_name = "FILE")]
         config: PathBuf,
     },
+    /// Print Prometheus alerting rules for a daemon config (pages only on anytime alarms)
+    Rules {
+        /// The daemon's YAML config file
+        #[arg(long, value_name = "FILE")]
+        config: PathBuf,
+    },
     /// Validate a daemon config file and print the resolved settings (exit 0 or 2)
     CheckConfig {
         /// The YAML config file
@@ -333,6 +339,7 @@ fn main() -> ExitCode {
         Command::Track(a) => run_track(a),
         Command::Run(a) => run_daemon(a),
         Command::Reset { model, config } => run_reset(model, config),
+        Command::Rules { config } => load_config(config).map(|c| print!("{}", riskbound::cmd::rules::render(&c))),
         Command::CheckConfig { file } => load_config(file).map(|c| print!("{}", c.describe())),
         Command::Demo(a) => {
             init_logs("human");

@@ -28,7 +28,11 @@ need = {"riskbound_risk_upper_bound", "riskbound_risk_lower_bound", "riskbound_r
         "riskbound_window_samples", "riskbound_sla_max_risk", "riskbound_sla_state",
         "riskbound_rows_ingested", "riskbound_rows_rejected", "riskbound_files_ingested",
         "riskbound_predictions_awaiting_label", "riskbound_label_delay_seconds",
-        "riskbound_last_ingest_timestamp_seconds", "riskbound_build_info"}
+        "riskbound_last_ingest_timestamp_seconds", "riskbound_build_info",
+        "riskbound_alarm_log_evidence", "riskbound_alarm_log_threshold", "riskbound_alarm_firing",
+        "riskbound_alarm_max_risk", "riskbound_anytime_reset_timestamp_seconds", "riskbound_anytime_resets"}
+guarantees = {s.labels.get("guarantee") for f in fams if f.name == "riskbound_risk_upper_bound" for s in f.samples}
+assert guarantees == {"per-window", "anytime"}, guarantees
 missing = need - names
 assert not missing, f"missing families: {missing}"
 print(f"prometheus_client parsed {len(fams)} families, {sum(len(f.samples) for f in fams)} samples")

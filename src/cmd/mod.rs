@@ -3,4 +3,5 @@
 
 pub mod bound;
 pub mod demo;
+pub mod rules;
 pub mod track;
