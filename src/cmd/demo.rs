@@ -16,6 +16,7 @@ use std::time::Duration;
 use anyhow::Context;
 
 use crate::app;
+use crate::estimate::anytime::Sequence;
 use crate::estimate::Method;
 use crate::window::Snapshot;
 
@@ -130,6 +131,40 @@ pub fn table(snap: &Snapshot) -> String {
             let state = w.state.map_or("-".to_string(), |(st, why)| format!("{} ({})", st.as_str(), why.describe()));
             let _ =
                 writeln!(s, "{:<12} {:<7} {:>6} {:>9.4} {:>10} {:>10}  {}", m.name, w.name, w.n, w.mean, lo, up, state);
+        }
+        let a = &m.anytime;
+        if let Some((_, b)) = a.bounds.iter().find(|(q, _)| *q == Sequence::BettingCs) {
+            let alarms: Vec<String> = a
+                .alarms
+                .iter()
+                .map(|x| match x.fired_at {
+                    Some(n) => format!("{} FIRED at label {n}", x.test.as_str()),
+                    None => format!(
+                        "{} quiet (log evidence {:.1} of {:.1})",
+                        x.test.as_str(),
+                        x.log_evidence,
+                        x.log_threshold
+                    ),
+                })
+                .collect();
+            let _ = writeln!(
+                s,
+                "{:<12} since reset: {} labels, mean {:.4}, betting-cs [{:.4}, {:.4}] (anytime); alarms: {}",
+                "",
+                a.n,
+                a.mean,
+                b.lower,
+                b.upper,
+                if alarms.is_empty() { "none (no sla)".to_string() } else { alarms.join(", ") }
+            );
+            if a.mean > b.upper || a.mean < b.lower {
+                // The running intersection pinned the sequence while the mean moved on.
+                let _ = writeln!(
+                    s,
+                    "{:<12} the mean left the sequence: the risk has not been constant since the reset, so read the windows",
+                    ""
+                );
+            }
         }
         let _ = writeln!(
             s,
