@@ -8,7 +8,6 @@ use common::{bin, free_port, simple_config, Daemon, Metrics, TempDir};
 use riskbound::estimate::anytime::evidence::ChangeDetector;
 use riskbound::estimate::anytime::sequence::HoeffdingBoundary;
 use riskbound::estimate::anytime::{Sequence, Tracker, TrackerSpec, DEFAULT_GRID};
-use serde_json::Value;
 
 const T: i64 = 1_790_000_000;
 const ROWS: usize = 200;
@@ -27,6 +26,23 @@ fn batch(b: usize, rate: f64, state: &mut u64) -> (String, String, Vec<f64>) {
         losses.push(f64::from(u8::from(wrong)));
     }
     (pred, label, losses)
+}
+
+/// Drops batch `b` (predictions, then labels) and waits until the daemon has taken it.
+fn feed(dir: &TempDir, daemon: &Daemon, b: usize, rate: f64, rng: &mut u64) -> Vec<f64> {
+    let (pred, label, losses) = batch(b, rate, rng);
+    dir.drop_file(&format!("pred-{b:03}.csv"), &pred);
+    dir.drop_file(&format!("label-{b:03}.csv"), &label);
+    daemon.wait_files("m", "label", (b + 1) as f64);
+    losses
+}
+
+fn replayed(spec: TrackerSpec, losses: &[f64]) -> Tracker {
+    let mut t = Tracker::new(spec);
+    for &l in losses {
+        t.push(l);
+    }
+    t
 }
 
 fn since_reset(method: &str) -> [(&str, &str); 4] {
@@ -114,10 +130,7 @@ fn reset_restarts_the_sequences_while_the_daemon_runs() {
     let cfg = simple_config(&dir, port, "rescan_interval: 100ms", "m", model, "[{ name: all, last: 100000 }]");
     let daemon = Daemon::start(&cfg, port);
     let mut rng = 5u64;
-    let (pred, label, _) = batch(0, 0.5, &mut rng);
-    dir.drop_file("pred-000.csv", &pred);
-    dir.drop_file("label-000.csv", &label);
-    daemon.wait_files("m", "label", 1.0);
+    feed(&dir, &daemon, 0, 0.5, &mut rng);
     let m = daemon.metrics();
     assert_eq!(m.get("riskbound_alarm_firing", &alarm("exceeded")), Some(1.0), "a risk of 0.5 against 0.2 fires");
 
@@ -132,15 +145,8 @@ fn reset_restarts_the_sequences_while_the_daemon_runs() {
     assert_eq!(m.get("riskbound_alarm_firing", &alarm("exceeded")), Some(0.0));
     assert_eq!(m.get("riskbound_window_samples", &[("model", "m"), ("window", "all")]), Some(ROWS as f64));
 
-    let (pred, label, losses) = batch(1, 0.05, &mut rng);
-    dir.drop_file("pred-001.csv", &pred);
-    dir.drop_file("label-001.csv", &label);
-    daemon.wait_files("m", "label", 2.0);
-    let mut replay = Tracker::new(spec(0.2));
-    for l in losses {
-        replay.push(l);
-    }
-    assert_matches(&daemon.metrics(), &replay);
+    let losses = feed(&dir, &daemon, 1, 0.05, &mut rng);
+    assert_matches(&daemon.metrics(), &replayed(spec(0.2), &losses));
 
     let out =
         std::process::Command::new(bin()).args(["reset", "nope", "--config", cfg.to_str().unwrap()]).output().unwrap();
@@ -163,10 +169,7 @@ fn changed_settings_restart_the_sequences_and_say_so() {
     );
     let mut rng = 7u64;
     let daemon = Daemon::start(&cfg, port);
-    let (pred, label, _) = batch(0, 0.1, &mut rng);
-    dir.drop_file("pred-000.csv", &pred);
-    dir.drop_file("label-000.csv", &label);
-    daemon.wait_files("m", "label", 1.0);
+    feed(&dir, &daemon, 0, 0.1, &mut rng);
     assert!(daemon.terminate().success());
 
     let cfg = simple_config(
@@ -178,15 +181,8 @@ fn changed_settings_restart_the_sequences_and_say_so() {
         windows,
     );
     let daemon = Daemon::start(&cfg, port);
-    let (pred, label, losses) = batch(1, 0.1, &mut rng);
-    dir.drop_file("pred-001.csv", &pred);
-    dir.drop_file("label-001.csv", &label);
-    daemon.wait_files("m", "label", 2.0);
-    let mut replay = Tracker::new(spec(0.3));
-    for l in losses {
-        replay.push(l);
-    }
-    assert_matches(&daemon.metrics(), &replay);
+    let losses = feed(&dir, &daemon, 1, 0.1, &mut rng);
+    assert_matches(&daemon.metrics(), &replayed(spec(0.3), &losses));
     assert!(daemon.log_text().contains("anytime sequences and alarms restarted"), "{}", daemon.log_text());
 }
 
@@ -203,17 +199,8 @@ fn shift_threshold_is_the_reference_upper_bound_plus_tolerance() {
     std::fs::write(dir.path("validation.csv"), reference).unwrap();
     let model = "    label_wait: 1d\n    sla:\n      max_risk: 0.2\n      reference: { file: validation.csv, columns: { prediction: p, label: y }, tolerance: 0.03, confidence: 0.95 }";
     let cfg = simple_config(&dir, port, "rescan_interval: 100ms", "m", model, "[{ name: all, last: 1000 }]");
-    let text =
-        std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/bounds_fixture.json")).unwrap();
-    let fx: Value = serde_json::from_str(&text).unwrap();
-    let case = fx["clopper_pearson"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|c| c["n"] == 100 && c["k"] == 12 && c["confidence"] == 0.95)
-        .unwrap();
     // Source: scipy.stats.beta.ppf via the fixture.
-    let upper = case["upper"].as_f64().unwrap();
+    let (_, upper) = common::fixture_cp(100, 12, 0.95);
 
     let out = std::process::Command::new(bin()).args(["check-config", cfg.to_str().unwrap()]).output().unwrap();
     let printed = String::from_utf8_lossy(&out.stdout);
@@ -223,10 +210,7 @@ fn shift_threshold_is_the_reference_upper_bound_plus_tolerance() {
 
     let daemon = Daemon::start(&cfg, port);
     let mut rng = 3u64;
-    let (pred, label, _) = batch(0, 0.1, &mut rng);
-    dir.drop_file("pred-000.csv", &pred);
-    dir.drop_file("label-000.csv", &label);
-    daemon.wait_files("m", "label", 1.0);
+    feed(&dir, &daemon, 0, 0.1, &mut rng);
     let got = daemon.metrics().get("riskbound_alarm_max_risk", &alarm("shift")).unwrap();
     assert!((got - (upper + 0.03)).abs() <= 1e-12, "{got} vs {}", upper + 0.03);
 

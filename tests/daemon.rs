@@ -5,9 +5,8 @@
 
 mod common;
 
-use common::{Daemon, Metrics, TempDir};
+use common::{fixture_cp, Daemon, Metrics, TempDir};
 use riskbound::estimate::{self, Confidence, LossSummary, Method};
-use serde_json::Value;
 
 const T: i64 = 1_790_000_000;
 
@@ -57,19 +56,6 @@ fn batches(wrong: &[usize]) -> (String, String) {
 
 /// 12 errors in 100 rows (the fixture has scipy's bounds for k = 12, n = 100).
 const WRONG: [usize; 12] = [3, 8, 15, 22, 41, 47, 56, 60, 71, 77, 85, 98];
-
-fn fixture_cp(n: u64, k: u64, conf: f64) -> (f64, f64) {
-    let text =
-        std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/bounds_fixture.json")).unwrap();
-    let fx: Value = serde_json::from_str(&text).unwrap();
-    let c = fx["clopper_pearson"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|c| c["n"] == n && c["k"] == k && c["confidence"] == conf)
-        .expect("fixture case");
-    (c["lower"].as_f64().unwrap(), c["upper"].as_f64().unwrap())
-}
 
 fn library(losses: &[f64], m: Method) -> estimate::Bounds {
     let mut s = LossSummary::keeping_losses(1.0);

@@ -57,46 +57,51 @@ fn model_rules(out: &mut String, m: &ModelConfig) {
     let _ = writeln!(out, "  - name: riskbound-{}\n    rules:", m.name);
     let name = &m.name;
     let delta = m.confidence.delta();
-    let coverage =
-        format!("on (model) riskbound_label_coverage_ratio{{model=\"{name}\"}} >= {}", sla.min_label_coverage);
-    write_rule(out, &Rule {
-        alert: "RiskboundRiskExceededSinceReset",
-        expr: format!("riskbound_alarm_firing{{model=\"{name}\",test=\"exceeded\"}} == 1 and {coverage}"),
-        for_: None,
-        severity: "page",
-        summary: format!("{name}: true risk has exceeded {} since the last reset", sla.max_risk),
-        description: format!(
-            "The betting e-process for 'risk <= {}' reached 1/delta. Anytime-valid: P(this fires while the risk never exceeded {}) <= {delta:.3e} over the whole deployment. Assumes labels are not selected by outcome and the sample order does not depend on the losses. Latched until `riskbound reset {name}`.",
-            sla.max_risk, sla.max_risk
+    // A page on a latched anytime alarm, held back while label coverage is too low to trust.
+    let page = |out: &mut String, alert: &str, test: &str, summary: String, description: String| {
+        let expr = format!(
+            "riskbound_alarm_firing{{model=\"{name}\",test=\"{test}\"}} == 1 and on (model) \
+             riskbound_label_coverage_ratio{{model=\"{name}\"}} >= {}",
+            sla.min_label_coverage
+        );
+        let description = format!("{description} Latched until `riskbound reset {name}`.");
+        write_rule(out, &Rule { alert, expr, for_: None, severity: "page", summary, description });
+    };
+    page(
+        out,
+        "RiskboundRiskExceededSinceReset",
+        "exceeded",
+        format!("{name}: true risk has exceeded {} since the last reset", sla.max_risk),
+        format!(
+            "The betting e-process for 'risk <= {0}' reached 1/delta. Anytime-valid: P(this fires while the risk never exceeded {0}) <= {delta:.3e} over the whole deployment. Assumes labels are not selected by outcome and the sample order does not depend on the losses.",
+            sla.max_risk
         ),
-    });
-    write_rule(out, &Rule {
-        alert: "RiskboundRiskRose",
-        expr: format!("riskbound_alarm_firing{{model=\"{name}\",test=\"change\"}} == 1 and {coverage}"),
-        for_: None,
-        severity: "page",
-        summary: format!("{name}: true risk rose above {}", sla.max_risk),
-        description: format!(
-            "The change detector (Shiryaev-Roberts e-detector) crossed its threshold. P(a false alarm within the first {} labels after a reset) <= {delta:.3e}. Latched until `riskbound reset {name}`.",
+    );
+    page(
+        out,
+        "RiskboundRiskRose",
+        "change",
+        format!("{name}: true risk rose above {}", sla.max_risk),
+        format!(
+            "The change detector (Shiryaev-Roberts e-detector) crossed its threshold. P(a false alarm within the first {} labels after a reset) <= {delta:.3e}.",
             sla.change_horizon
         ),
-    });
+    );
     if let Some(r) = &sla.reference {
-        write_rule(out, &Rule {
-            alert: "RiskboundHarmfulShift",
-            expr: format!("riskbound_alarm_firing{{model=\"{name}\",test=\"shift\"}} == 1 and {coverage}"),
-            for_: None,
-            severity: "page",
-            summary: format!("{name}: deployed risk exceeds the reference risk bound plus tolerance ({:.6})", r.max_risk()),
-            description: format!(
-                "Reference {} (n {}) upper bound {:.6} + tolerance {}. P(false alarm) <= {:.3e} (reference plus deployment). Latched until `riskbound reset {name}`.",
+        page(
+            out,
+            "RiskboundHarmfulShift",
+            "shift",
+            format!("{name}: deployed risk exceeds the reference risk bound plus tolerance ({:.6})", r.max_risk()),
+            format!(
+                "Reference {} (n {}) upper bound {:.6} + tolerance {}. P(false alarm) <= {:.3e} (reference plus deployment).",
                 r.file.display(),
                 r.n,
                 r.upper,
                 r.tolerance,
                 r.confidence.delta() + delta
             ),
-        });
+        );
     }
     write_rule(out, &Rule {
         alert: "RiskboundWindowSlaViolated",

@@ -59,6 +59,21 @@ models:
     p
 }
 
+/// scipy's one-sided Clopper-Pearson (lower, upper) for k errors in n at confidence `conf`,
+/// from tests/reference/bounds_fixture.json (scipy.stats.beta.ppf; see its script).
+pub fn fixture_cp(n: u64, k: u64, conf: f64) -> (f64, f64) {
+    let text =
+        std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/bounds_fixture.json")).unwrap();
+    let fx: serde_json::Value = serde_json::from_str(&text).unwrap();
+    let c = fx["clopper_pearson"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|c| c["n"] == n && c["k"] == k && c["confidence"] == conf)
+        .expect("fixture case");
+    (c["lower"].as_f64().unwrap(), c["upper"].as_f64().unwrap())
+}
+
 /// A free loopback port (bound and released; the daemon binds it right after).
 pub fn free_port() -> u16 {
     std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port()
