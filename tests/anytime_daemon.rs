@@ -221,3 +221,39 @@ fn shift_threshold_is_the_reference_upper_bound_plus_tolerance() {
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("sla.reference.file") && err.contains("validation.csv:3"), "{err}");
 }
+
+/// The evaluation number k behind an exported spent confidence C = 1 − δ/(k(k+1)).
+fn evaluation_of(confidence: f64) -> u64 {
+    let delta_k = 1.0 - confidence;
+    (1..10_000u64)
+        .find(|&k| (0.05 / (k * (k + 1)) as f64 - delta_k).abs() <= 1e-12)
+        .unwrap_or_else(|| panic!("{confidence} is not 1 - 0.05/(k(k+1)) for any k"))
+}
+
+#[test]
+fn spent_window_bounds_use_delta_k_and_k_survives_restarts() {
+    let dir = TempDir::new("anytime-spent");
+    let port = free_port();
+    let model = "    label_wait: 1d\n    window_guarantee: spent\n    sla: { max_risk: 0.2 }";
+    let cfg = simple_config(&dir, port, "rescan_interval: 100ms", "m", model, "[{ name: all, last: 100000 }]");
+    let mut rng = 17u64;
+    let daemon = Daemon::start(&cfg, port);
+    let losses = feed(&dir, &daemon, 0, 0.15, &mut rng);
+    let m = daemon.metrics();
+    let spent = [("model", "m"), ("guarantee", "spent")];
+    let c = m.get("riskbound_bound_confidence_ratio", &spent).unwrap();
+    let k = evaluation_of(c);
+    assert!(k >= 2, "the resume and the file are two evaluations at least, got {k}");
+    assert_eq!(m.get("riskbound_bound_confidence_ratio", &[("model", "m"), ("guarantee", "anytime")]), Some(0.95));
+    // Clopper-Pearson at δ_k = δ/(k(k+1)) (the union bound Σ δ_k = δ).
+    let errors = losses.iter().sum::<f64>() as u64;
+    let want = riskbound::estimate::binomial::clopper_pearson(errors, ROWS as u64, 1.0 - c);
+    let cp = [("model", "m"), ("window", "all"), ("method", "clopper-pearson"), ("guarantee", "spent")];
+    assert_eq!(m.get("riskbound_risk_upper_bound", &cp), Some(want.upper));
+    assert_eq!(m.get("riskbound_risk_lower_bound", &cp), Some(want.lower));
+    // A restart continues the count, so no δ_k is ever spent twice.
+    daemon.kill9();
+    let daemon = Daemon::start(&cfg, port);
+    let k2 = evaluation_of(daemon.metrics().get("riskbound_bound_confidence_ratio", &spent).unwrap());
+    assert!(k2 > k, "k went from {k} to {k2}");
+}
