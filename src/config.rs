@@ -58,6 +58,14 @@ struct RawModel {
     windows: Spanned<Vec<RawWindow>>,
     window_guarantee: Option<Spanned<String>>,
     sla: Option<Spanned<RawSla>>,
+    alerts: Option<Spanned<RawAlerts>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawAlerts {
+    stalled_after: Option<Spanned<String>>,
+    max_reject_ratio: Option<Spanned<f64>>,
 }
 
 #[derive(Deserialize)]
@@ -144,6 +152,23 @@ pub struct ModelConfig {
     /// What the per-window bounds promise: each evaluation on its own, or δ spent over all.
     pub window_guarantee: WindowGuarantee,
     pub sla: Option<SlaConfig>,
+    /// Thresholds of the generated operational alerts (`riskbound rules`).
+    pub alerts: AlertsConfig,
+}
+
+/// Thresholds of the operational alerts `riskbound rules` generates.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AlertsConfig {
+    /// Ingestion counts as stalled when no batch file was committed for this long.
+    pub stalled_after: Duration,
+    /// Rejected rows / all rows over 15 minutes above this is an alert.
+    pub max_reject_ratio: f64,
+}
+
+impl Default for AlertsConfig {
+    fn default() -> Self {
+        AlertsConfig { stalled_after: Duration::from_secs(3600), max_reject_ratio: 0.05 }
+    }
 }
 
 /// The guarantee of the per-window bounds (the anytime sequences always hold at every label).
@@ -689,6 +714,28 @@ impl Checker {
                 .and_then(|r| self.reference(r, &format!("{k}.sla.reference"), loss, method, confidence));
             SlaConfig { max_risk: s.max_risk.value, method, min_samples, min_label_coverage, change_horizon, reference }
         });
+        let mut alerts = AlertsConfig::default();
+        if let Some(a) = &raw.alerts {
+            if let Some(d) = &a.value.stalled_after {
+                if let Some(ms) = self.duration_ms(d, &format!("{k}.alerts.stalled_after")) {
+                    if ms < 60_000 {
+                        self.push(d, &format!("{k}.alerts.stalled_after"), "must be at least 1m");
+                    }
+                    alerts.stalled_after = Duration::from_millis(ms.max(0) as u64);
+                }
+            }
+            if let Some(r) = &a.value.max_reject_ratio {
+                if r.value > 0.0 && r.value <= 1.0 {
+                    alerts.max_reject_ratio = r.value;
+                } else {
+                    self.push(
+                        r,
+                        &format!("{k}.alerts.max_reject_ratio"),
+                        format!("must lie in (0, 1], got {}", r.value),
+                    );
+                }
+            }
+        }
         let window_guarantee = match &raw.window_guarantee {
             None => WindowGuarantee::PerWindow,
             Some(g) => match g.value.as_str() {
@@ -715,6 +762,7 @@ impl Checker {
             windows,
             window_guarantee,
             sla,
+            alerts,
         })
     }
 }

@@ -44,6 +44,9 @@ enum Command {
         /// The daemon's YAML config file
         #[arg(long, value_name = "FILE")]
         config: PathBuf,
+        /// The job label of Prometheus's scrape of riskbound (for the "down" alert)
+        #[arg(long, value_name = "NAME", default_value = riskbound::cmd::rules::DEFAULT_JOB)]
+        job: String,
     },
     /// Validate a daemon config file and print the resolved settings (exit 0 or 2)
     CheckConfig {
@@ -339,7 +342,9 @@ fn main() -> ExitCode {
         Command::Track(a) => run_track(a),
         Command::Run(a) => run_daemon(a),
         Command::Reset { model, config } => run_reset(model, config),
-        Command::Rules { config } => load_config(config).map(|c| print!("{}", riskbound::cmd::rules::render(&c))),
+        Command::Rules { config, job } => {
+            load_config(config).map(|c| print!("{}", riskbound::cmd::rules::render(&c, job)))
+        }
         Command::CheckConfig { file } => load_config(file).map(|c| print!("{}", c.describe())),
         Command::Demo(a) => {
             init_logs("human");

@@ -161,6 +161,27 @@ const CASES: &[(&str, &str, &str, u64, &str)] = &[
         "models[0].sla.change_horizon",
     ),
     (
+        "stalled_after below a minute",
+        "    label_wait: 7d\n",
+        "    label_wait: 7d\n    alerts: { stalled_after: 30s }\n",
+        19,
+        "models[0].alerts.stalled_after",
+    ),
+    (
+        "max_reject_ratio 0",
+        "    label_wait: 7d\n",
+        "    label_wait: 7d\n    alerts: { max_reject_ratio: 0 }\n",
+        19,
+        "models[0].alerts.max_reject_ratio",
+    ),
+    (
+        "unknown alerts key",
+        "    label_wait: 7d\n",
+        "    label_wait: 7d\n    alerts: { page_on: violated }\n",
+        19,
+        "page_on",
+    ),
+    (
         "reference file missing",
         "min_samples: 30 }",
         "min_samples: 30, reference: { file: nope.csv, columns: { prediction: p, label: y }, tolerance: 0.02 } }",

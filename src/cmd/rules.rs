@@ -1,16 +1,21 @@
 //! `riskbound rules`: Prometheus alerting rules generated from a daemon config, so the SLA
-//! thresholds and budgets in the rules are the ones the daemon computes with.
+//! thresholds, windows and budgets in the rules are the ones the daemon computes with.
 //!
-//! Pages go only to the anytime alarms, whose false-alarm probability holds over the whole
-//! deployment, and only while enough labels come back for the labelled rows to be trusted as a
-//! sample. A window's per-look `violated` state is a ticket: re-checked after every batch, it
-//! would page falsely again and again (README, "What repeated looks cost").
+//! Severities, for routing: `page` only for the anytime alarms (their false-alarm probability
+//! holds over the whole deployment), the daemon being down and the state volume refusing
+//! writes; `ticket` for a window's per-look violation, stalled ingestion, a high reject ratio
+//! and low label coverage; `info` for "compliance no longer certified". A per-look bound is
+//! never a page: re-checked after every batch it would page falsely again and again (README,
+//! "What repeated looks cost").
 
 use std::fmt::Write;
 
-use crate::config::{Config, ModelConfig};
+use crate::config::{Config, ModelConfig, WindowKind};
 
-/// YAML double-quoted string (model names are [a-z0-9_-], but descriptions hold quotes).
+/// The Prometheus job label riskbound's scrape uses, unless told otherwise.
+pub const DEFAULT_JOB: &str = "riskbound";
+
+/// YAML double-quoted string.
 fn quoted(s: &str) -> String {
     let mut out = String::from("\"");
     for c in s.chars() {
@@ -27,6 +32,9 @@ fn quoted(s: &str) -> String {
 
 struct Rule<'a> {
     alert: &'a str,
+    /// Routing labels beside severity (model, window): they also keep rules of different
+    /// models and windows apart for promtool's duplicate check.
+    labels: Vec<(&'static str, String)>,
     expr: String,
     for_: Option<&'a str>,
     severity: &'a str,
@@ -41,6 +49,9 @@ fn write_rule(out: &mut String, r: &Rule<'_>) {
         let _ = writeln!(out, "        for: {f}");
     }
     let _ = writeln!(out, "        labels:\n          severity: {}", r.severity);
+    for (k, v) in &r.labels {
+        let _ = writeln!(out, "          {k}: {v}");
+    }
     let _ = writeln!(
         out,
         "        annotations:\n          summary: {}\n          description: {}",
@@ -49,12 +60,27 @@ fn write_rule(out: &mut String, r: &Rule<'_>) {
     );
 }
 
-fn model_rules(out: &mut String, m: &ModelConfig) {
-    let Some(sla) = &m.sla else {
-        let _ = writeln!(out, "  # model {}: no sla configured, so nothing to page on", m.name);
-        return;
-    };
-    let _ = writeln!(out, "  - name: riskbound-{}\n    rules:", m.name);
+/// A duration as Prometheus writes it (whole seconds, largest unit that divides).
+fn prom_duration(secs: u64) -> String {
+    for (unit, n) in [("d", 86_400), ("h", 3600), ("m", 60)] {
+        if secs >= n && secs % n == 0 {
+            return format!("{}{unit}", secs / n);
+        }
+    }
+    format!("{secs}s")
+}
+
+fn window_words(kind: WindowKind) -> String {
+    match kind {
+        WindowKind::Last(n) => format!("the newest {n} labelled samples"),
+        WindowKind::SpanMs(ms) => {
+            format!("the labelled samples predicted within {} of the newest", prom_duration((ms / 1000).max(1) as u64))
+        }
+    }
+}
+
+fn sla_rules(out: &mut String, m: &ModelConfig) {
+    let Some(sla) = &m.sla else { return };
     let name = &m.name;
     let delta = m.confidence.delta();
     // A page on a latched anytime alarm, held back while label coverage is too low to trust.
@@ -65,7 +91,18 @@ fn model_rules(out: &mut String, m: &ModelConfig) {
             sla.min_label_coverage
         );
         let description = format!("{description} Latched until `riskbound reset {name}`.");
-        write_rule(out, &Rule { alert, expr, for_: None, severity: "page", summary, description });
+        write_rule(
+            out,
+            &Rule {
+                alert,
+                labels: vec![("model", name.clone())],
+                expr,
+                for_: None,
+                severity: "page",
+                summary,
+                description,
+            },
+        );
     };
     page(
         out,
@@ -103,19 +140,45 @@ fn model_rules(out: &mut String, m: &ModelConfig) {
             ),
         );
     }
-    write_rule(out, &Rule {
-        alert: "RiskboundWindowSlaViolated",
-        expr: format!("riskbound_sla_state{{model=\"{name}\",state=\"violated\"}} == 1"),
-        for_: None,
-        severity: "ticket",
-        summary: format!("{name}: window {{{{ $labels.window }}}} lower bound is above {}", sla.max_risk),
-        description: format!(
-            "A per-window bound ({}): valid at one look, not across the repeated looks the daemon makes. A ticket, not a page.",
-            m.window_guarantee.as_str()
-        ),
-    });
+    let method = sla.method.name();
+    let guarantee = m.window_guarantee.as_str();
+    let level = m.confidence.level();
+    for w in &m.windows {
+        let wname = &w.name;
+        let words = window_words(w.kind);
+        let sel = format!("model=\"{name}\",window=\"{wname}\",method=\"{method}\",guarantee=\"{guarantee}\"");
+        write_rule(out, &Rule {
+            alert: "RiskboundWindowSlaViolated",
+            labels: vec![("model", name.clone()), ("window", wname.clone())],
+            expr: format!(
+                "riskbound_risk_lower_bound{{{sel}}} > {} and on (model, window) \
+                 riskbound_sla_state{{model=\"{name}\",window=\"{wname}\",state=\"violated\"}} == 1",
+                sla.max_risk
+            ),
+            for_: None,
+            severity: "ticket",
+            summary: format!("{name}/{wname}: true risk certainly above {} (lower bound {{{{ $value }}}})", sla.max_risk),
+            description: format!(
+                "The {method} lower bound on the true risk of window {wname} ({words}) is above max_risk {} at confidence {level} ({guarantee} guarantee). A per-look bound: the daemon re-checks after every batch, so across looks its false alarms add up. A ticket; the anytime alarms page.",
+                sla.max_risk
+            ),
+        });
+        write_rule(out, &Rule {
+            alert: "RiskboundWindowSlaNotCertified",
+            labels: vec![("model", name.clone()), ("window", wname.clone())],
+            expr: format!("riskbound_risk_upper_bound{{{sel}}} > {}", sla.max_risk),
+            for_: Some("30m"),
+            severity: "info",
+            summary: format!("{name}/{wname}: compliance with {} no longer certified (upper bound {{{{ $value }}}})", sla.max_risk),
+            description: format!(
+                "The {method} upper bound on the true risk of window {wname} ({words}) is above max_risk {} at confidence {level}: the window can no longer be certified within the SLA. Not evidence of a violation.",
+                sla.max_risk
+            ),
+        });
+    }
     write_rule(out, &Rule {
         alert: "RiskboundLabelCoverageLow",
+        labels: vec![("model", name.clone())],
         expr: format!("riskbound_label_coverage_ratio{{model=\"{name}\"}} < {}", sla.min_label_coverage),
         for_: Some("30m"),
         severity: "ticket",
@@ -124,11 +187,45 @@ fn model_rules(out: &mut String, m: &ModelConfig) {
     });
 }
 
-/// The rules file for `config`, as YAML text.
-pub fn render(config: &Config) -> String {
+fn model_rules(out: &mut String, m: &ModelConfig) {
+    let name = &m.name;
+    let _ = writeln!(out, "  - name: riskbound-{name}\n    rules:");
+    if m.sla.is_none() {
+        let _ = writeln!(out, "      # no sla configured: no risk alerts for this model");
+    }
+    sla_rules(out, m);
+    let stall = m.alerts.stalled_after.as_secs();
+    write_rule(out, &Rule {
+        alert: "RiskboundIngestStalled",
+        labels: vec![("model", name.clone())],
+        expr: format!("time() - riskbound_last_ingest_timestamp_seconds{{model=\"{name}\"}} > {stall}"),
+        for_: Some("5m"),
+        severity: "ticket",
+        summary: format!("{name}: no batch file committed for over {}", prom_duration(stall)),
+        description: "The serving stack stopped dropping batch files, or riskbound stopped taking them: the bounds are going stale.".into(),
+    });
+    let ratio = m.alerts.max_reject_ratio;
+    write_rule(out, &Rule {
+        alert: "RiskboundRejectRatioHigh",
+        labels: vec![("model", name.clone())],
+        expr: format!(
+            "sum by (model) (rate(riskbound_rows_rejected_total{{model=\"{name}\"}}[15m])) / \
+             (sum by (model) (rate(riskbound_rows_ingested_total{{model=\"{name}\"}}[15m])) + \
+             sum by (model) (rate(riskbound_rows_rejected_total{{model=\"{name}\"}}[15m]))) > {ratio}"
+        ),
+        for_: Some("15m"),
+        severity: "ticket",
+        summary: format!("{name}: more than {ratio} of rows rejected (ratio {{{{ $value }}}})"),
+        description: "Rows are rejected (bad cells, duplicates, late labels); riskbound_rows_rejected_total{reason} says why and the daemon log names the first bad line of each file. Rejected rows are not in any bound.".into(),
+    });
+}
+
+/// The rules file for `config`, as YAML text; `job` is the scrape's job label.
+pub fn render(config: &Config, job: &str) -> String {
     let mut out = format!(
         "# Prometheus alerting rules generated by `riskbound rules --config {}`.\n\
-         # Regenerate after changing the config: thresholds and budgets are copied from it.\n\
+         # Regenerate after changing the config: thresholds, windows and budgets are copied from it.\n\
+         # severity: page (anytime alarms, daemon down, state unwritable), ticket, info.\n\
          groups:\n",
         config.file.display()
     );
@@ -136,8 +233,23 @@ pub fn render(config: &Config) -> String {
         model_rules(&mut out, m);
     }
     out += "  - name: riskbound-daemon\n    rules:\n";
+    write_rule(
+        &mut out,
+        &Rule {
+            alert: "RiskboundDown",
+            labels: Vec::new(),
+            expr: format!("up{{job=\"{job}\"}} == 0 or absent(up{{job=\"{job}\"}})"),
+            for_: Some("5m"),
+            severity: "page",
+            summary: "riskbound is not being scraped".into(),
+            description: format!(
+                "Prometheus cannot scrape job {job}: no bounds and no alarms are being computed or seen."
+            ),
+        },
+    );
     write_rule(&mut out, &Rule {
         alert: "RiskboundStateUnwritable",
+        labels: Vec::new(),
         expr: "riskbound_state_unwritable == 1".into(),
         for_: Some("5m"),
         severity: "page",

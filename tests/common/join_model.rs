@@ -155,6 +155,7 @@ pub fn model_config() -> ModelConfig {
         windows: vec![WindowConfig { name: "all".into(), kind: WindowKind::Last(u64::MAX / 4) }],
         window_guarantee: riskbound::config::WindowGuarantee::PerWindow,
         sla: None,
+        alerts: Default::default(),
     }
 }
 
