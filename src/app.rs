@@ -309,17 +309,22 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     });
     let server_stop = Arc::new(tokio::sync::Notify::new());
     let stop_signal = server_stop.clone();
-    let app = server::router(shared.clone());
+    let mut app = server::router(shared.clone());
+    if !config.web.users.is_empty() {
+        app = app.layer(axum::middleware::from_fn_with_state(config.web.clone(), crate::export::web::require_auth));
+    }
+    let tls = config.web.tls.clone();
+    let scheme = if tls.is_some() { "https" } else { "http" };
     let limits = server::Limits {
         max_connections: config.max_connections,
         header_read_timeout: config.header_read_timeout,
         connection_lifetime: Duration::from_secs(60),
     };
     let server = runtime.spawn(async move {
-        server::serve(listener, app, limits, stop_signal).await;
+        server::serve(listener, app, limits, stop_signal, tls).await;
         Ok(())
     });
-    tracing::info!(%addr, "serving /metrics, /healthz, /readyz");
+    tracing::info!(%addr, scheme, basic_auth = !config.web.users.is_empty(), "serving /metrics, /healthz, /readyz");
 
     let store = Store::open(&config.state_dir)?;
     let mut pipeline = Pipeline {

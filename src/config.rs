@@ -134,6 +134,8 @@ pub struct Config {
     /// Time allowed for an HTTP request's headers to arrive.
     pub header_read_timeout: Duration,
     pub models: Vec<ModelConfig>,
+    /// TLS and basic auth of the HTTP surface (from `--web-config`; plain HTTP by default).
+    pub web: crate::export::web::WebConfig,
 }
 
 /// One monitored model.
@@ -769,7 +771,7 @@ impl Checker {
 
 /// Turns a parser error into one located issue. The parser reports one problem at a time
 /// (syntax, an unknown key, a wrong type); semantic problems are all collected afterwards.
-fn parse_issue(e: &serde_saphyr::Error) -> ConfigIssue {
+pub(crate) fn parse_issue(e: &serde_saphyr::Error) -> ConfigIssue {
     let (line, column) = e.location().map_or((1, 1), |l| (l.line(), l.column()));
     let text = e.without_snippet().to_string();
     let text = text.lines().next().unwrap_or("").trim_start_matches("error: ");
@@ -883,6 +885,7 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
         max_connections,
         header_read_timeout,
         models,
+        web: crate::export::web::WebConfig::plain(),
     })
 }
 

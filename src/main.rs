@@ -48,6 +48,12 @@ enum Command {
         #[arg(long, value_name = "NAME", default_value = riskbound::cmd::rules::DEFAULT_JOB)]
         job: String,
     },
+    /// Read a password on standard input and print its bcrypt hash, for basic_auth_users
+    HashPassword {
+        /// bcrypt cost (4 to 31); each step doubles the work of a check
+        #[arg(long, default_value = "12", value_parser = clap::value_parser!(u32).range(4..=31))]
+        cost: u32,
+    },
     /// Validate a daemon config file and print the resolved settings (exit 0 or 2)
     CheckConfig {
         /// The YAML config file
@@ -65,6 +71,10 @@ struct RunArgs {
     /// Log format
     #[arg(long, value_name = "FORMAT", default_value = "human", value_parser = ["human", "json"])]
     log_format: String,
+    /// TLS and basic-auth settings of the HTTP surface (YAML: tls_server_config,
+    /// basic_auth_users), as Prometheus exporters take them
+    #[arg(long, value_name = "FILE")]
+    web_config: Option<PathBuf>,
 }
 
 /// The input file and how to get a loss from each row (shared by `bound` and `track`).
@@ -304,6 +314,17 @@ fn load_config(path: &Path) -> anyhow::Result<riskbound::config::Config> {
     riskbound::config::load(path).map_err(|e| UsageError(e.to_string()).into())
 }
 
+fn hash_password(cost: u32) -> anyhow::Result<()> {
+    let mut line = String::new();
+    io::stdin().read_line(&mut line).context("reading the password")?;
+    let password = line.trim_end_matches(['\n', '\r']);
+    if password.is_empty() {
+        return Err(UsageError("no password on standard input".into()).into());
+    }
+    println!("{}", bcrypt::hash(password, cost).context("hashing")?);
+    Ok(())
+}
+
 fn run_reset(model: &str, config: &Path) -> anyhow::Result<()> {
     let config = load_config(config)?;
     if !config.models.iter().any(|m| m.name == model) {
@@ -324,7 +345,10 @@ fn run_reset(model: &str, config: &Path) -> anyhow::Result<()> {
 }
 
 fn run_daemon(a: &RunArgs) -> anyhow::Result<()> {
-    let config = load_config(&a.config)?;
+    let mut config = load_config(&a.config)?;
+    if let Some(w) = &a.web_config {
+        config.web = riskbound::export::web::load(w).map_err(|e| UsageError(e.to_string()))?;
+    }
     init_logs(&a.log_format);
     tracing::info!(
         models = config.models.len(),
@@ -342,6 +366,7 @@ fn main() -> ExitCode {
         Command::Track(a) => run_track(a),
         Command::Run(a) => run_daemon(a),
         Command::Reset { model, config } => run_reset(model, config),
+        Command::HashPassword { cost } => hash_password(*cost),
         Command::Rules { config, job } => {
             load_config(config).map(|c| print!("{}", riskbound::cmd::rules::render(&c, job)))
         }

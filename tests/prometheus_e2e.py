@@ -12,6 +12,7 @@ Run: python3 tests/prometheus_e2e.py [--bin target/release/riskbound] [--secure]
 Only the standard library; no network beyond 127.0.0.1.
 """
 import argparse
+import warnings
 import json
 import os
 import shutil
@@ -57,6 +58,51 @@ def wait(what, timeout, f):
             last = e
         time.sleep(0.5)
     raise SystemExit(f"timed out waiting for {what}; last: {last}")
+
+
+def secure_checks(port, ca):  # noqa: C901
+    """Wrong or missing credentials get 401; the probes stay open; TLS below 1.2 is refused
+    by the server (its protocol_version alert), not merely unsupported by this client."""
+    import base64
+    import ssl
+    import urllib.error
+    ctx = ssl.create_default_context(cafile=ca)
+
+    def get(path, user=None, password=None):
+        req = urllib.request.Request(f"https://127.0.0.1:{port}{path}")
+        if user is not None:
+            token = base64.b64encode(f"{user}:{password}".encode()).decode()
+            req.add_header("Authorization", "Basic " + token)
+        try:
+            with urllib.request.urlopen(req, context=ctx, timeout=10) as r:
+                return r.status, dict(r.headers)
+        except urllib.error.HTTPError as e:
+            return e.code, dict(e.headers)
+
+    assert get("/metrics", "prometheus", "s3cret")[0] == 200
+    status, headers = get("/metrics", "prometheus", "wrong")
+    assert status == 401 and headers.get("www-authenticate", headers.get("WWW-Authenticate", "")).startswith("Basic"), (status, headers)
+    assert get("/metrics")[0] == 401
+    assert get("/metrics", "nobody", "s3cret")[0] == 401
+    assert get("/healthz")[0] == 200 and get("/readyz")[0] == 200
+    # TLS 1.1 is deprecated in Python too; this client offers it on purpose.
+    warnings.simplefilter("ignore", DeprecationWarning)
+    old = ssl.SSLContext(ssl.PROTOCOL_TLS_CLIENT)
+    old.check_hostname = False
+    old.verify_mode = ssl.CERT_NONE
+    old.set_ciphers("DEFAULT@SECLEVEL=0")
+    old.minimum_version = ssl.TLSVersion.TLSv1_1
+    old.maximum_version = ssl.TLSVersion.TLSv1_1
+    try:
+        with socket.create_connection(("127.0.0.1", port), timeout=10) as raw:
+            with old.wrap_socket(raw) as tls:
+                raise SystemExit(f"a TLS 1.1 handshake succeeded: {tls.version()}")
+    except ssl.SSLError as e:
+        # An alert received from the server (protocol_version or handshake_failure), so the
+        # refusal is the server's, not this client's ("no protocols available" would be ours).
+        assert "ALERT" in (e.reason or ""), e
+        print(f"TLS 1.1 refused by the server: {e.reason}")
+    print("basic auth: 401 on wrong, missing or unknown credentials; probes open")
 
 
 def main():
@@ -130,6 +176,8 @@ scrape_configs:
             return t and t[0]["health"] == "up" and t[0]["scrapeUrl"].startswith(scheme + "://")
         wait("the riskbound target up", 60, target_up)
         print(f"prometheus scrapes riskbound over {scheme}")
+        if a.secure:
+            secure_checks(rb_port, os.path.join(work, "cert.pem"))
 
         # 400 requests, 1 in 3 wrong: the CP lower bound on window recent is far above 0.1.
         folder = os.path.join(work, "in")

@@ -2,6 +2,9 @@
 //! runs), GET /readyz (state resumed from the database and the state volume writable; 503
 //! otherwise). Every other path is 404, and other methods on these paths 405.
 //!
+//! With a web config (export/web.rs), connections are TLS and every request but the probes
+//! needs basic-auth credentials.
+//!
 //! The accept loop is our own, on hyper, so that a slow or hostile client cannot hold the
 //! server: request headers must arrive within a timeout, a connection lives at most a bounded
 //! time, and past a cap on open connections new ones are closed at once.
@@ -62,8 +65,30 @@ pub struct Limits {
     pub connection_lifetime: Duration,
 }
 
-/// Serves `router` on `listener` until `stop` is notified.
-pub async fn serve(listener: tokio::net::TcpListener, router: Router, limits: Limits, stop: Arc<tokio::sync::Notify>) {
+/// Serves one connection's requests, for at most the connection lifetime.
+async fn serve_connection<I>(io: I, router: Router, limits: Limits)
+where
+    I: tokio::io::AsyncRead + tokio::io::AsyncWrite + Unpin + Send + 'static,
+{
+    let service = hyper_util::service::TowerToHyperService::new(router);
+    let conn = hyper::server::conn::http1::Builder::new()
+        .timer(hyper_util::rt::TokioTimer::new())
+        .header_read_timeout(limits.header_read_timeout)
+        .serve_connection(hyper_util::rt::TokioIo::new(io), service);
+    let _ = tokio::time::timeout(limits.connection_lifetime, conn).await;
+}
+
+/// Serves `router` on `listener` until `stop` is notified; over TLS when `tls` is given (the
+/// handshake must finish within the header-read timeout, so a silent client cannot hold a
+/// connection slot).
+pub async fn serve(
+    listener: tokio::net::TcpListener,
+    router: Router,
+    limits: Limits,
+    stop: Arc<tokio::sync::Notify>,
+    tls: Option<Arc<tokio_rustls::rustls::ServerConfig>>,
+) {
+    let acceptor = tls.map(tokio_rustls::TlsAcceptor::from);
     let permits = Arc::new(tokio::sync::Semaphore::new(limits.max_connections));
     loop {
         let accepted = tokio::select! {
@@ -76,14 +101,16 @@ pub async fn serve(listener: tokio::net::TcpListener, router: Router, limits: Li
             drop(stream);
             continue;
         };
-        let service = hyper_util::service::TowerToHyperService::new(router.clone());
+        let (router, acceptor) = (router.clone(), acceptor.clone());
         tokio::spawn(async move {
-            let io = hyper_util::rt::TokioIo::new(stream);
-            let conn = hyper::server::conn::http1::Builder::new()
-                .timer(hyper_util::rt::TokioTimer::new())
-                .header_read_timeout(limits.header_read_timeout)
-                .serve_connection(io, service);
-            let _ = tokio::time::timeout(limits.connection_lifetime, conn).await;
+            match acceptor {
+                None => serve_connection(stream, router, limits).await,
+                Some(a) => match tokio::time::timeout(limits.header_read_timeout, a.accept(stream)).await {
+                    Ok(Ok(tls)) => serve_connection(tls, router, limits).await,
+                    Ok(Err(e)) => tracing::debug!(error = %e, "TLS handshake failed"),
+                    Err(_) => tracing::debug!("TLS handshake timed out"),
+                },
+            }
             drop(permit);
         });
     }

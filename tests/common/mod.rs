@@ -94,12 +94,19 @@ pub struct Daemon {
 impl Daemon {
     /// Starts `riskbound run --config CONFIG` and waits until /readyz answers 200.
     pub fn start(config: &Path, port: u16) -> Daemon {
+        Self::start_with(config, port, &[])
+    }
+
+    /// Like [`Daemon::start`] with extra arguments; with a web config the readiness wait is on
+    /// the log line instead (the probe would need TLS).
+    pub fn start_with(config: &Path, port: u16, extra: &[&str]) -> Daemon {
         static STARTS: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(0);
         let n = STARTS.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
         let log_path = config.with_extension(format!("log.{n}"));
         let log = std::fs::File::create(&log_path).unwrap();
         let child = Command::new(bin())
             .args(["run", "--config", config.to_str().unwrap()])
+            .args(extra)
             .env("RUST_LOG", "info")
             .env("NO_COLOR", "1")
             .stdout(Stdio::null())
@@ -107,7 +114,11 @@ impl Daemon {
             .spawn()
             .unwrap();
         let d = Daemon { child, port, log: log_path };
-        d.wait_until(Duration::from_secs(20), |d| d.get("/readyz").map(|(s, _)| s == 200).unwrap_or(false));
+        if extra.is_empty() {
+            d.wait_until(Duration::from_secs(20), |d| d.get("/readyz").map(|(s, _)| s == 200).unwrap_or(false));
+        } else {
+            d.wait_until(Duration::from_secs(20), |d| d.log_text().contains("state resumed; ready"));
+        }
         d
     }
 
