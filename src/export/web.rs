@@ -55,8 +55,11 @@ pub struct WebConfig {
     pub users: Arc<BTreeMap<String, String>>,
     /// (user, SHA-256 of the password) pairs already verified: bcrypt is slow on purpose, and a
     /// scraper sends the same credentials every few seconds.
-    verified: Arc<Mutex<HashSet<(String, [u8; 32])>>>,
+    verified: Arc<Mutex<HashSet<Verified>>>,
 }
+
+/// A user name and the SHA-256 of a password that bcrypt accepted for it.
+type Verified = (String, [u8; 32]);
 
 impl std::fmt::Debug for WebConfig {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
