@@ -504,7 +504,15 @@ impl Checker {
             return None;
         }
         let source = source?;
-        let opened = match std::fs::File::open(&file) {
+        // A regular file only: a device or FIFO named here would block the config load.
+        let opened = match std::fs::metadata(&file).map(|m| m.is_file()) {
+            Ok(false) => {
+                self.push(&r.file, &format!("{key}.file"), format!("{} is not a regular file", file.display()));
+                return None;
+            }
+            _ => std::fs::File::open(&file),
+        };
+        let opened = match opened {
             Ok(f) => f,
             Err(e) => {
                 self.push(&r.file, &format!("{key}.file"), format!("cannot read {}: {e}", file.display()));

@@ -36,6 +36,7 @@ struct Rule<'a> {
     /// models and windows apart for promtool's duplicate check.
     labels: Vec<(&'static str, String)>,
     expr: String,
+    /// The `for:` duration (every rule states one, "0s" included).
     for_: Option<&'a str>,
     severity: &'a str,
     summary: String,
@@ -97,7 +98,8 @@ fn sla_rules(out: &mut String, m: &ModelConfig) {
                 alert,
                 labels: vec![("model", name.clone())],
                 expr,
-                for_: None,
+                // The alarm latches and its guarantee is its own: waiting adds delay, not certainty.
+                for_: Some("0s"),
                 severity: "page",
                 summary,
                 description,
@@ -155,7 +157,8 @@ fn sla_rules(out: &mut String, m: &ModelConfig) {
                  riskbound_sla_state{{model=\"{name}\",window=\"{wname}\",state=\"violated\"}} == 1",
                 sla.max_risk
             ),
-            for_: None,
+            // A violated window is already certified at its confidence when the state says so.
+            for_: Some("0s"),
             severity: "ticket",
             summary: format!("{name}/{wname}: true risk certainly above {} (lower bound {{{{ $value }}}})", sla.max_risk),
             description: format!(
