@@ -189,6 +189,13 @@ const CASES: &[(&str, &str, &str, u64, &str)] = &[
         "models[0].sla.reference.file",
     ),
     (
+        "reference is a directory",
+        "min_samples: 30 }",
+        "min_samples: 30, reference: { file: in, format: csv, columns: { prediction: p, label: y }, tolerance: 0.02 } }",
+        22,
+        "models[0].sla.reference.file",
+    ),
+    (
         "reference tolerance negative",
         "min_samples: 30 }",
         "min_samples: 30, reference: { file: nope.csv, columns: { prediction: p, label: y }, tolerance: -0.02 } }",
