@@ -15,6 +15,7 @@ pub mod binomial;
 pub mod hoeffding;
 pub mod kl;
 pub mod sla;
+pub mod slices;
 pub mod special;
 mod summary;
 

@@ -1,0 +1,464 @@
+//! Slices of a window: the scan for the worst ones and the certificates that survive the
+//! selection (shared/METHODS.md §3–5). Pure: rows in, numbers out; signs and splits come from
+//! a recorded seed, so every result can be reproduced.
+//!
+//! The class. For categorical features every value, and conjunctions of up to `depth` of them;
+//! for numeric features every threshold {x ≤ t}, {x > t} and interval {a < x ≤ b}, ties grouped
+//! (the class restricted to the sample only tells unique values apart). The slice functions are
+//! g_S(z) = (l − θ)·1_S(x) with losses scaled to [0, 1]: range [−θ, 1 − θ], width D = 1.
+//!
+//! The scan (§3.4 a): for a weight vector w, sup_S Σ_{i∈S} w_i is a max group sum (categories),
+//! a max prefix or suffix sum (thresholds) or a max subarray (intervals, Kadane) over the unique
+//! values in sorted order: O(n) per feature after one sort, O(d·n·(log n + k)) for k weight
+//! vectors. The same code computes the scan statistic (w = l − θ) and each Rademacher supremum
+//! (w = s·(l − θ)).
+//!
+//! The certificates, each valid for how the slice was found:
+//! - `split-confirm`: discover on a seeded half, confirm on the other half with the exact
+//!   binomial bound (0-1 loss) or betting (bounded loss), at δ_split / K over the K slices kept;
+//! - `uniform` (Theorem U1 of §3.2, McDiarmid over sample and signs): with probability ≥ 1 − δ,
+//!   for every S at once, P g_S ≥ P_n g_S − ε with ε = 2 R̃_k + sqrt((9 + 4/k) ln(1/δ) / (2n)).
+//!   P g_S = P(S)(R(S) − θ) > 0 means R(S) > θ, and since P(S) ≤ 1 the risk of S is at least
+//!   θ + (P_n g_S − ε) whenever that is positive.
+//! - `localized`: the fixed point of a sub-root function built from one sign vector (§4.3). Its
+//!   constants are recalled, not confirmed against Bartlett, Bousquet & Mendelson (2005,
+//!   Ann. Statist. 33(4), Theorem 4.1), so it is reported as a diagnostic and never certifies.
+
+use std::collections::HashMap;
+
+use super::{binomial, betting, Bounds};
+
+/// A slice of the window, as reported.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Slice {
+    Category { feature: String, value: String },
+    Conjunction { parts: Vec<(String, String)> },
+    /// {x ≤ high} when `low` is None, {x > low} when `high` is None.
+    Threshold { feature: String, low: Option<f64>, high: Option<f64> },
+    /// {low < x ≤ high}.
+    Interval { feature: String, low: f64, high: f64 },
+}
+
+impl Slice {
+    pub fn kind(&self) -> &'static str {
+        match self {
+            Slice::Category { .. } => "category",
+            Slice::Conjunction { .. } => "conjunction",
+            Slice::Threshold { .. } => "threshold",
+            Slice::Interval { .. } => "interval",
+        }
+    }
+
+    /// The feature (for a conjunction, its features joined by `&`).
+    pub fn feature(&self) -> String {
+        match self {
+            Slice::Category { feature, .. } | Slice::Threshold { feature, .. } | Slice::Interval { feature, .. } => {
+                feature.clone()
+            }
+            Slice::Conjunction { parts } => parts.iter().map(|(f, _)| f.as_str()).collect::<Vec<_>>().join("&"),
+        }
+    }
+
+    /// A short human description, e.g. `region=north-east`, `0.3 < weight_kg <= 0.4`.
+    pub fn describe(&self) -> String {
+        match self {
+            Slice::Category { feature, value } => format!("{feature}={value}"),
+            Slice::Conjunction { parts } => parts.iter().map(|(f, v)| format!("{f}={v}")).collect::<Vec<_>>().join(" & "),
+            Slice::Threshold { feature, low: None, high: Some(h) } => format!("{feature} <= {h}"),
+            Slice::Threshold { feature, low: Some(l), .. } => format!("{feature} > {l}"),
+            Slice::Threshold { feature, .. } => format!("{feature} (all)"),
+            Slice::Interval { feature, low, high } => format!("{low} < {feature} <= {high}"),
+        }
+    }
+}
+
+/// The rows of a window: scaled losses and feature values.
+#[derive(Clone, Debug, Default)]
+pub struct Table {
+    /// Losses scaled to [0, 1].
+    pub losses: Vec<f64>,
+    /// (name, value per row) of each categorical feature.
+    pub categorical: Vec<(String, Vec<String>)>,
+    /// (name, value per row) of each numeric feature (finite values).
+    pub numeric: Vec<(String, Vec<f64>)>,
+}
+
+/// A categorical feature (or a conjunction) coded densely.
+struct CatIndex {
+    /// (feature, value) parts of each code's slice.
+    labels: Vec<Vec<(String, String)>>,
+    codes: Vec<u32>,
+}
+
+/// A numeric feature: rows in sorted order, and where each run of tied values ends.
+struct NumIndex {
+    name: String,
+    order: Vec<u32>,
+    /// ends[g] = one past the last position (in `order`) of unique value g.
+    ends: Vec<u32>,
+    values: Vec<f64>,
+}
+
+/// The sorted and grouped view of a set of rows, reused for every weight vector.
+pub struct Scanner {
+    n: usize,
+    cats: Vec<CatIndex>,
+    nums: Vec<NumIndex>,
+}
+
+/// The best slice of one family for a weight vector, and its sum.
+#[derive(Clone, Debug)]
+pub struct Found {
+    pub slice: Slice,
+    pub sum: f64,
+}
+
+fn combos(m: usize, depth: usize) -> Vec<Vec<usize>> {
+    let mut out: Vec<Vec<usize>> = Vec::new();
+    fn rec(start: usize, m: usize, left: usize, cur: &mut Vec<usize>, out: &mut Vec<Vec<usize>>) {
+        if !cur.is_empty() {
+            out.push(cur.clone());
+        }
+        if left == 0 {
+            return;
+        }
+        for j in start..m {
+            cur.push(j);
+            rec(j + 1, m, left - 1, cur, out);
+            cur.pop();
+        }
+    }
+    rec(0, m, depth, &mut Vec::new(), &mut out);
+    out
+}
+
+impl Scanner {
+    /// Indexes the rows `rows` of `t` (all rows when `rows` is None); conjunctions of up to
+    /// `depth` categorical features become features of their own.
+    pub fn new(t: &Table, rows: Option<&[u32]>, depth: usize) -> Scanner {
+        let all: Vec<u32>;
+        let rows = match rows {
+            Some(r) => r,
+            None => {
+                all = (0..t.losses.len() as u32).collect();
+                &all
+            }
+        };
+        let mut cats = Vec::new();
+        for combo in combos(t.categorical.len(), depth.max(1)) {
+            let mut index: HashMap<Vec<&str>, u32> = HashMap::new();
+            let mut labels = Vec::new();
+            let mut codes = Vec::with_capacity(rows.len());
+            for &r in rows {
+                let key: Vec<&str> = combo.iter().map(|&c| t.categorical[c].1[r as usize].as_str()).collect();
+                let next = index.len() as u32;
+                let code = *index.entry(key.clone()).or_insert_with(|| {
+                    labels.push(
+                        combo.iter().zip(&key).map(|(&c, v)| (t.categorical[c].0.clone(), v.to_string())).collect(),
+                    );
+                    next
+                });
+                codes.push(code);
+            }
+            cats.push(CatIndex { labels, codes });
+        }
+        let mut nums = Vec::new();
+        for (name, values) in &t.numeric {
+            let mut order: Vec<u32> = (0..rows.len() as u32).collect();
+            order.sort_by(|&a, &b| values[rows[a as usize] as usize].total_cmp(&values[rows[b as usize] as usize]));
+            let mut ends = Vec::new();
+            let mut uniq = Vec::new();
+            for (p, &i) in order.iter().enumerate() {
+                let v = values[rows[i as usize] as usize];
+                if uniq.last() != Some(&v) {
+                    if !uniq.is_empty() {
+                        ends.push(p as u32);
+                    }
+                    uniq.push(v);
+                }
+            }
+            if !uniq.is_empty() {
+                ends.push(order.len() as u32);
+            }
+            nums.push(NumIndex { name: name.clone(), order, ends, values: uniq });
+        }
+        Scanner { n: rows.len(), cats, nums }
+    }
+
+    pub fn n(&self) -> usize {
+        self.n
+    }
+
+    /// sup over the whole class of Σ_{i∈S} w_i (≥ 0: the empty slice is in the class). `w` is
+    /// indexed by position in the scanner's rows. `scratch` is reused between calls.
+    pub fn sup(&self, w: &[f64], scratch: &mut Vec<f64>) -> f64 {
+        let mut best = 0.0_f64;
+        for c in &self.cats {
+            scratch.clear();
+            scratch.resize(c.labels.len(), 0.0);
+            for (&code, &wi) in c.codes.iter().zip(w) {
+                scratch[code as usize] += wi;
+            }
+            best = scratch.iter().fold(best, |b, &s| b.max(s));
+        }
+        let mut groups = Vec::new();
+        for f in &self.nums {
+            groups.clear();
+            let mut start = 0usize;
+            for &end in &f.ends {
+                groups.push(f.order[start..end as usize].iter().map(|&i| w[i as usize]).sum::<f64>());
+                start = end as usize;
+            }
+            best = best.max(max_prefix(&groups)).max(max_suffix(&groups)).max(max_subarray(&groups));
+        }
+        best
+    }
+
+    /// Candidate slices for weight vector `w`: every category and conjunction, and per numeric
+    /// feature the best lower threshold, upper threshold and interval; sorted by sum, best first.
+    pub fn candidates(&self, w: &[f64]) -> Vec<Found> {
+        let mut out = Vec::new();
+        for c in &self.cats {
+            let mut sums = vec![0.0; c.labels.len()];
+            for (&code, &wi) in c.codes.iter().zip(w) {
+                sums[code as usize] += wi;
+            }
+            for (parts, sum) in c.labels.iter().zip(sums) {
+                let slice = if parts.len() == 1 {
+                    Slice::Category { feature: parts[0].0.clone(), value: parts[0].1.clone() }
+                } else {
+                    Slice::Conjunction { parts: parts.clone() }
+                };
+                out.push(Found { slice, sum });
+            }
+        }
+        for f in &self.nums {
+            let u = f.values.len();
+            if u == 0 {
+                continue;
+            }
+            let mut start = 0usize;
+            let mut prefix = vec![0.0; u + 1];
+            for (g, &end) in f.ends.iter().enumerate() {
+                prefix[g + 1] = prefix[g] + f.order[start..end as usize].iter().map(|&i| w[i as usize]).sum::<f64>();
+                start = end as usize;
+            }
+            let total = prefix[u];
+            // Lower thresholds {x <= values[k-1]} for k in 1..u (k = u is the whole window).
+            if let Some(k) = (1..u).max_by(|&a, &b| prefix[a].total_cmp(&prefix[b])) {
+                out.push(Found {
+                    slice: Slice::Threshold { feature: f.name.clone(), low: None, high: Some(f.values[k - 1]) },
+                    sum: prefix[k],
+                });
+                let j = (1..u).min_by(|&a, &b| prefix[a].total_cmp(&prefix[b])).expect("u > 1");
+                out.push(Found {
+                    slice: Slice::Threshold { feature: f.name.clone(), low: Some(f.values[j - 1]), high: None },
+                    sum: total - prefix[j],
+                });
+            }
+            // Intervals (values[i-1], values[k-1]] = prefix[k] - prefix[i], 1 <= i < k <= u.
+            let (mut best, mut arg, mut min_i) = (f64::NEG_INFINITY, (1, 2), 1usize);
+            for k in 2..=u {
+                if prefix[k - 1] < prefix[min_i] {
+                    min_i = k - 1;
+                }
+                if prefix[k] - prefix[min_i] > best {
+                    best = prefix[k] - prefix[min_i];
+                    arg = (min_i, k);
+                }
+            }
+            if u >= 2 {
+                out.push(Found {
+                    slice: Slice::Interval { feature: f.name.clone(), low: f.values[arg.0 - 1], high: f.values[arg.1 - 1] },
+                    sum: best,
+                });
+            }
+        }
+        out.sort_by(|a, b| b.sum.total_cmp(&a.sum));
+        out
+    }
+}
+
+/// max(0, max_k Σ_{j≤k} g_j): the best lower threshold {x ≤ t} (the empty slice included).
+pub fn max_prefix(g: &[f64]) -> f64 {
+    let (mut p, mut best) = (0.0_f64, 0.0_f64);
+    for &x in g {
+        p += x;
+        best = best.max(p);
+    }
+    best
+}
+
+/// max(0, max_k Σ_{j>k} g_j): the best upper threshold {x > t}.
+pub fn max_suffix(g: &[f64]) -> f64 {
+    let (mut p, mut best) = (0.0_f64, 0.0_f64);
+    for &x in g.iter().rev() {
+        p += x;
+        best = best.max(p);
+    }
+    best
+}
+
+/// max(0, max_{i≤k} Σ_{i<j≤k} g_j): the best interval (Kadane's algorithm, one pass).
+pub fn max_subarray(g: &[f64]) -> f64 {
+    let (mut run, mut best) = (0.0_f64, 0.0_f64);
+    for &x in g {
+        run = (run + x).max(0.0);
+        best = best.max(run);
+    }
+    best
+}
+
+/// True when row `r` of `t` is in `s`.
+pub fn contains(t: &Table, s: &Slice, r: usize) -> bool {
+    let cat = |f: &str, v: &str| t.categorical.iter().find(|c| c.0 == f).is_some_and(|c| c.1[r] == v);
+    let num = |f: &str| t.numeric.iter().find(|c| c.0 == f).map(|c| c.1[r]);
+    match s {
+        Slice::Category { feature, value } => cat(feature, value),
+        Slice::Conjunction { parts } => parts.iter().all(|(f, v)| cat(f, v)),
+        Slice::Threshold { feature, low, high } => num(feature).is_some_and(|x| {
+            low.is_none_or(|l| x > l) && high.is_none_or(|h| x <= h)
+        }),
+        Slice::Interval { feature, low, high } => num(feature).is_some_and(|x| x > *low && x <= *high),
+    }
+}
+
+/// A small seeded generator (SplitMix64): signs and splits are reproducible from the seed.
+pub struct Seeded(u64);
+
+impl Seeded {
+    pub fn new(seed: u64) -> Seeded {
+        Seeded(seed)
+    }
+    pub fn next_u64(&mut self) -> u64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^ (z >> 31)
+    }
+    pub fn sign(&mut self) -> f64 {
+        if self.next_u64() >> 63 == 0 {
+            -1.0
+        } else {
+            1.0
+        }
+    }
+}
+
+/// The uniform certificate's numbers.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Uniform {
+    /// R̃_k of the class {(l − θ)·1_S}, centred (§3.1).
+    pub rademacher: f64,
+    pub sign_draws: usize,
+    /// ε of Theorem U1 at this δ.
+    pub deviation: f64,
+}
+
+/// R̃_k and ε (Theorem U1) for the slice class on `scan`'s rows with weights `excess`
+/// (= l − θ, scaled), k sign vectors from `rng`, at level δ.
+pub fn uniform(scan: &Scanner, excess: &[f64], theta: f64, k: usize, delta: f64, rng: &mut Seeded) -> Uniform {
+    let n = scan.n() as f64;
+    let c0 = 0.5 - theta; // centre of [−θ, 1 − θ]
+    let mut w = vec![0.0; excess.len()];
+    let mut scratch = Vec::new();
+    let mut total = 0.0;
+    for _ in 0..k {
+        let mut sign_sum = 0.0;
+        for (wi, &e) in w.iter_mut().zip(excess) {
+            let s = rng.sign();
+            sign_sum += s;
+            *wi = s * e;
+        }
+        total += scan.sup(&w, &mut scratch) / n - c0 * sign_sum / n;
+    }
+    let rademacher = total / k as f64;
+    let deviation = 2.0 * rademacher + ((9.0 + 4.0 / k as f64) * (1.0 / delta).ln() / (2.0 * n)).sqrt();
+    Uniform { rademacher, sign_draws: k, deviation }
+}
+
+/// The localized diagnostic: the fixed point of ψ̂(r) = c1·φ_s(r) + c2·x/n, where φ_s(r) is the
+/// single-sign supremum over the star hull {a·g_S : a ∈ [0, 1]} of the categorical and
+/// threshold slices under P_n g² ≤ 2r (intervals are left out: their exact constrained supremum
+/// is O(u²) per feature), by iteration from above (every iterate is conservative), and the
+/// deviation (6K/B) r̂* + x (11 + 5BK)/n with K = 2, B = 1, x = ln(5/δ). Constants as recalled in
+/// METHODS.md §4.3: c1 = 20, c2 = c1 + 11.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Localized {
+    pub fixed_point: f64,
+    pub deviation: f64,
+    pub iterations: u32,
+}
+
+pub fn localized(t: &Table, scan_rows: &[u32], theta: f64, delta: f64, rng: &mut Seeded) -> Localized {
+    let n = scan_rows.len() as f64;
+    let excess: Vec<f64> = scan_rows.iter().map(|&r| t.losses[r as usize] - theta).collect();
+    let s: Vec<f64> = (0..scan_rows.len()).map(|_| rng.sign()).collect();
+    // Members of the (sub)class as (Σ s_i g_i, Σ g_i²) over the rows they hold.
+    let mut members: Vec<(f64, f64)> = Vec::new();
+    for (_, values) in &t.categorical {
+        let mut groups: HashMap<&str, (f64, f64)> = HashMap::new();
+        for (p, &r) in scan_rows.iter().enumerate() {
+            let e = groups.entry(values[r as usize].as_str()).or_default();
+            e.0 += s[p] * excess[p];
+            e.1 += excess[p] * excess[p];
+        }
+        members.extend(groups.into_values());
+    }
+    for (_, values) in &t.numeric {
+        let mut order: Vec<usize> = (0..scan_rows.len()).collect();
+        order.sort_by(|&a, &b| values[scan_rows[a] as usize].total_cmp(&values[scan_rows[b] as usize]));
+        let (mut a, mut q) = (0.0, 0.0);
+        let (ta, tq): (f64, f64) = order.iter().fold((0.0, 0.0), |(x, y), &p| (x + s[p] * excess[p], y + excess[p] * excess[p]));
+        for (j, &p) in order.iter().enumerate() {
+            a += s[p] * excess[p];
+            q += excess[p] * excess[p];
+            let tie = j + 1 < order.len() && values[scan_rows[order[j + 1]] as usize] == values[scan_rows[p] as usize];
+            if !tie {
+                members.push((a, q));
+                members.push((ta - a, tq - q));
+            }
+        }
+    }
+    let phi = |r: f64| -> f64 {
+        members
+            .iter()
+            .map(|&(dot, sq)| {
+                let scale = if sq <= 0.0 { 1.0 } else { (2.0 * r * n / sq).sqrt().min(1.0) };
+                (scale * dot / n).max(0.0)
+            })
+            .fold(0.0, f64::max)
+    };
+    let (c1, x) = (20.0, (5.0 / delta).ln());
+    let c2 = c1 + 11.0;
+    let psi = |r: f64| c1 * phi(r) + c2 * x / n;
+    let mut r = 1.0_f64.max(psi(1.0));
+    let mut iterations = 0;
+    for _ in 0..60 {
+        let next = psi(r);
+        iterations += 1;
+        if next >= r * (1.0 - 1e-9) {
+            break;
+        }
+        r = next;
+    }
+    let k = 2.0;
+    Localized { fixed_point: r, deviation: 6.0 * k * r + x * (11.0 + 5.0 * k) / n, iterations }
+}
+
+/// A slice's bounds on held-out rows: Clopper-Pearson for 0-1 losses, betting otherwise.
+pub fn confirm(losses: &[f64], binary: bool, delta: f64) -> Bounds {
+    if losses.is_empty() {
+        return Bounds::TRIVIAL;
+    }
+    if binary {
+        let k = losses.iter().filter(|&&l| l >= 1.0).count() as u64;
+        binomial::clopper_pearson(k, losses.len() as u64, delta)
+    } else {
+        betting::fixed_n(losses, delta)
+    }
+}
+
+#[cfg(test)]
+mod tests;

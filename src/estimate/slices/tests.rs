@@ -1,0 +1,139 @@
+use super::*;
+
+/// Exact E over all 2^n sign vectors of f(signs), for n ≤ 20.
+fn exact_mean(n: usize, f: impl Fn(&[f64]) -> f64) -> f64 {
+    let mut s = vec![0.0; n];
+    let mut total = 0.0;
+    for mask in 0u32..(1 << n) {
+        for (i, x) in s.iter_mut().enumerate() {
+            *x = if mask >> i & 1 == 1 { 1.0 } else { -1.0 };
+        }
+        total += f(&s);
+    }
+    total / f64::from(1u32 << n)
+}
+
+#[test]
+fn threshold_rademacher_average_is_the_random_walk_maximum() {
+    // On distinct points sup_t Σ_{x_i ≤ t} s_i is the maximum M_n of a simple random walk; its
+    // mean by the reflection principle (Feller, Vol. I, Ch. III), from METHODS.md §3.5:
+    // E M_10 = 2.083984375, E M_16 = 2.7402801513671875.
+    assert_eq!(exact_mean(10, max_prefix), 2.083984375);
+    assert_eq!(exact_mean(16, max_prefix), 2.7402801513671875);
+    // Upper thresholds are the same walk read backwards.
+    assert_eq!(exact_mean(16, max_suffix), 2.7402801513671875);
+}
+
+#[test]
+fn interval_rademacher_average_is_the_maximum_subarray_mean() {
+    // E[max subarray of 16 signs] = 4.103546142578125 (exhaustive enumeration, METHODS.md §3.5).
+    assert_eq!(exact_mean(16, max_subarray), 4.103546142578125);
+}
+
+#[test]
+fn threshold_average_at_n_1000_by_monte_carlo() {
+    // E M_1000 = 24.7376306875 (reflection principle, METHODS.md §3.5); 20000 seeded walks,
+    // within 4 standard errors (sd of M_n is about sqrt((1 − 2/π) n) ≈ 19).
+    let mut rng = Seeded::new(11);
+    let k = 20_000;
+    let mut g = vec![0.0; 1000];
+    let (mut sum, mut sq) = (0.0, 0.0);
+    for _ in 0..k {
+        for x in g.iter_mut() {
+            *x = rng.sign();
+        }
+        let m = max_prefix(&g);
+        sum += m;
+        sq += m * m;
+    }
+    let mean = sum / k as f64;
+    let se = ((sq / k as f64 - mean * mean) / k as f64).sqrt();
+    assert!((mean - 24.7376306875).abs() < 4.0 * se, "{mean} ± {se}");
+}
+
+fn table(seed: u64, n: usize) -> Table {
+    let mut r = Seeded::new(seed);
+    let mut u = || (r.next_u64() >> 11) as f64 / (1u64 << 53) as f64;
+    let losses: Vec<f64> = (0..n).map(|_| if u() < 0.3 { 1.0 } else { u() * 0.2 }).collect();
+    let a: Vec<String> = (0..n).map(|_| ["x", "y", "z"][(u() * 3.0) as usize].to_string()).collect();
+    let b: Vec<String> = (0..n).map(|_| ["p", "q"][(u() * 2.0) as usize].to_string()).collect();
+    // Heavy ties: five distinct values.
+    let v: Vec<f64> = (0..n).map(|_| (u() * 5.0).floor() / 4.0).collect();
+    Table { losses, categorical: vec![("a".into(), a), ("b".into(), b)], numeric: vec![("v".into(), v)] }
+}
+
+/// Every slice of the class, enumerated the slow way.
+fn brute_force_sup(t: &Table, w: &[f64], depth: usize) -> f64 {
+    let n = t.losses.len();
+    let mut best = 0.0_f64;
+    let sum_if = |f: &dyn Fn(usize) -> bool| (0..n).filter(|&i| f(i)).map(|i| w[i]).sum::<f64>();
+    let mut vals: Vec<f64> = t.numeric[0].1.clone();
+    vals.sort_by(f64::total_cmp);
+    vals.dedup();
+    let x = &t.numeric[0].1;
+    for &lo in &vals {
+        best = best.max(sum_if(&|i| x[i] <= lo)).max(sum_if(&|i| x[i] > lo));
+        for &hi in &vals {
+            best = best.max(sum_if(&|i| x[i] > lo && x[i] <= hi));
+        }
+    }
+    let (a, b) = (&t.categorical[0].1, &t.categorical[1].1);
+    for va in ["x", "y", "z"] {
+        best = best.max(sum_if(&|i| a[i] == va));
+        for vb in ["p", "q"] {
+            best = best.max(sum_if(&|i| b[i] == vb));
+            if depth >= 2 {
+                best = best.max(sum_if(&|i| a[i] == va && b[i] == vb));
+            }
+        }
+    }
+    best
+}
+
+#[test]
+fn every_supremum_agrees_with_brute_force_on_tied_data() {
+    for seed in 0..200 {
+        let t = table(seed, 5 + (seed as usize % 40));
+        let depth = 1 + (seed as usize % 2);
+        let scan = Scanner::new(&t, None, depth);
+        let mut rng = Seeded::new(seed + 1000);
+        let w: Vec<f64> = t.losses.iter().map(|l| rng.sign() * (l - 0.15)).collect();
+        let fast = scan.sup(&w, &mut Vec::new());
+        let slow = brute_force_sup(&t, &w, depth);
+        assert!((fast - slow).abs() < 1e-12, "seed {seed}: {fast} vs {slow}");
+        // The best candidate is a member of the class with the right sum.
+        let top = &scan.candidates(&w)[0];
+        let direct: f64 = (0..t.losses.len()).filter(|&i| contains(&t, &top.slice, i)).map(|i| w[i]).sum();
+        assert!((top.sum - direct).abs() < 1e-12, "seed {seed}: {:?}", top.slice);
+        // The best candidate attains the supremum, unless that is the whole window (in the
+        // class, but not reported as a slice).
+        let whole: f64 = w.iter().sum();
+        assert!(top.sum <= fast + 1e-12, "seed {seed}");
+        assert!(fast <= 0.0 || top.sum >= fast - 1e-12 || (whole - fast).abs() < 1e-12, "seed {seed}: {} vs {fast}", top.sum);
+    }
+}
+
+#[test]
+fn massarts_bound_holds_for_a_finite_class() {
+    // Massart's lemma (Massart 2000, Lemma 5.2): E_s max_j (1/n) Σ s_i (g_j(z_i) − c0) ≤
+    // max_j ‖g_j − c0‖₂ sqrt(2 ln M) / n. The class: the 3 + 2 categories of a 14-row table,
+    // exact expectation over all 2^14 sign vectors.
+    let t = table(5, 14);
+    let theta = 0.15;
+    let c0 = 0.5 - theta;
+    let n = t.losses.len();
+    let g: Vec<Vec<f64>> = ["x", "y", "z"]
+        .iter()
+        .map(|v| (0..n).map(|i| if t.categorical[0].1[i] == *v { t.losses[i] - theta } else { 0.0 }).collect())
+        .chain(["p", "q"].iter().map(|v| (0..n).map(|i| if t.categorical[1].1[i] == *v { t.losses[i] - theta } else { 0.0 }).collect()))
+        .collect();
+    let exact = exact_mean(n, |s| {
+        g.iter().map(|gj| gj.iter().zip(s).map(|(x, si)| si * (x - c0)).sum::<f64>()).fold(f64::NEG_INFINITY, f64::max)
+            / n as f64
+    });
+    let norm = g.iter().map(|gj| gj.iter().map(|x| (x - c0) * (x - c0)).sum::<f64>().sqrt()).fold(0.0, f64::max);
+    let massart = norm * (2.0 * (g.len() as f64).ln()).sqrt() / n as f64;
+    assert!(exact <= massart, "{exact} > {massart}");
+    assert!(exact > 0.0);
+}
+
