@@ -28,6 +28,8 @@ enum Command {
     Bound(BoundArgs),
     /// Replay one file in order and print anytime-valid bounds and SLA alarms as they evolve
     Track(TrackArgs),
+    /// Find the worst slices of one file and certify which are over the SLA
+    Slices(SlicesArgs),
     /// Run the daemon: watch batch files, keep windows, serve bounds on /metrics
     Run(RunArgs),
     /// Restart a model's anytime sequences and alarms from the next label (after a redeploy,
@@ -153,6 +155,39 @@ struct TrackArgs {
     json: bool,
 }
 
+#[derive(Args)]
+struct SlicesArgs {
+    #[command(flatten)]
+    input: InputArgs,
+    /// Categorical feature columns (comma-separated): every value is a slice
+    #[arg(long, value_name = "A,B", value_delimiter = ',')]
+    categorical: Vec<String>,
+    /// Numeric feature columns (comma-separated): thresholds and intervals are slices
+    #[arg(long, value_name = "X,Y", value_delimiter = ',')]
+    numeric: Vec<String>,
+    /// Conjunctions of up to D categorical features
+    #[arg(long, value_name = "D", default_value = "1", value_parser = clap::value_parser!(u64).range(1..=3))]
+    depth: u64,
+    /// The SLA θ: a slice violates when its certified lower bound exceeds it
+    #[arg(long, value_name = "THETA", allow_hyphen_values = true)]
+    sla_max_risk: f64,
+    /// Confidence C: all certificates together err with probability at most 1 − C
+    #[arg(long, value_name = "C", default_value = "0.95", value_parser = parse_confidence, allow_hyphen_values = true)]
+    confidence: Confidence,
+    /// Slices to report (and to confirm on the held-out half)
+    #[arg(long, value_name = "K", default_value = "10", value_parser = clap::value_parser!(u64).range(1..=1000))]
+    top: u64,
+    /// Seed of the split and the sign draws (recorded in the output)
+    #[arg(long, value_name = "S", default_value = "1")]
+    seed: u64,
+    /// Rademacher sign vectors for the uniform certificate
+    #[arg(long, value_name = "K", default_value = "100", value_parser = clap::value_parser!(u64).range(1..=100_000))]
+    sign_draws: u64,
+    /// Print the JSON document (the only output format)
+    #[arg(long)]
+    json: bool,
+}
+
 fn parse_confidence(s: &str) -> Result<Confidence, String> {
     let v: f64 = s.parse().map_err(|_| format!("{s:?} is not a number"))?;
     Confidence::new(v).map_err(|e| e.to_string())
@@ -266,6 +301,46 @@ fn run_bound(a: &BoundArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
+fn run_slices(a: &SlicesArgs) -> anyhow::Result<()> {
+    let input = plan_input(&a.input)?;
+    if input.group_by.is_some() {
+        return Err(UsageError(
+            "slices searches the groups itself: drop --group-by, name --categorical columns".into(),
+        )
+        .into());
+    }
+    if !(a.sla_max_risk >= 0.0 && a.sla_max_risk <= input.loss.max()) {
+        return Err(UsageError(format!(
+            "--sla-max-risk {} is outside the loss range [0, {}]",
+            a.sla_max_risk,
+            input.loss.max()
+        ))
+        .into());
+    }
+    if a.categorical.is_empty() && a.numeric.is_empty() {
+        return Err(UsageError("name at least one --categorical or --numeric feature column".into()).into());
+    }
+    let plan = riskbound::cmd::slices::Plan {
+        input,
+        categorical: a.categorical.clone(),
+        numeric: a.numeric.clone(),
+        depth: a.depth as usize,
+        sla_max_risk: a.sla_max_risk,
+        confidence: a.confidence,
+        top: a.top as usize,
+        seed: a.seed,
+        sign_draws: a.sign_draws as usize,
+    };
+    let _ = a.json; // JSON is the one output format; the flag is accepted for symmetry
+    let doc = with_input(&a.input.file, |src| Ok(riskbound::cmd::slices::run(&plan, src).map_err(BoundError::from)?))?;
+    let stdout = io::stdout();
+    let mut out = BufWriter::new(stdout.lock());
+    serde_json::to_writer(&mut out, &doc).context("writing JSON")?;
+    writeln!(out)?;
+    out.flush()?;
+    Ok(())
+}
+
 fn run_track(a: &TrackArgs) -> anyhow::Result<()> {
     let input = plan_input(&a.input)?;
     if let Some(t) = a.sla_max_risk {
@@ -364,6 +439,7 @@ fn main() -> ExitCode {
     let result = match &cli.command {
         Command::Bound(a) => run_bound(a),
         Command::Track(a) => run_track(a),
+        Command::Slices(a) => run_slices(a),
         Command::Run(a) => run_daemon(a),
         Command::Reset { model, config } => run_reset(model, config),
         Command::HashPassword { cost } => hash_password(*cost),

@@ -95,6 +95,17 @@ pub fn for_each_loss<R: Read>(
     src: R,
     mut visit: impl FnMut(LossRow<'_>) -> Result<(), DecodeError>,
 ) -> Result<u64, DecodeError> {
+    for_each_loss_with(input, &[], src, |row, _| visit(row))
+}
+
+/// Like [`for_each_loss`], also handing over the cells of the `extra` columns (each required:
+/// a row without one is a located error).
+pub fn for_each_loss_with<R: Read>(
+    input: &Input,
+    extra: &[&str],
+    src: R,
+    mut visit: impl FnMut(LossRow<'_>, &[&[u8]]) -> Result<(), DecodeError>,
+) -> Result<u64, DecodeError> {
     let mut columns: Vec<&str> = match &input.source {
         LossSource::Column(c) => vec![c.as_str()],
         LossSource::Compare { prediction, label } => vec![prediction.as_str(), label.as_str()],
@@ -102,6 +113,8 @@ pub fn for_each_loss<R: Read>(
     if let Some(g) = &input.group_by {
         columns.push(g.as_str());
     }
+    let first_extra = columns.len();
+    columns.extend_from_slice(extra);
     let file = input.file_label.as_str();
     let mut last_line = 1u64;
     for_each_row(src, input.format, file, &columns, |row| {
@@ -126,9 +139,14 @@ pub fn for_each_loss<R: Read>(
         };
         let key = match &input.group_by {
             None => None,
-            Some(_) => Some(required(&row, file, &columns, columns.len() - 1)?),
+            Some(_) => Some(required(&row, file, &columns, first_extra - 1)?),
         };
-        visit(LossRow { key, line: row.line, loss: value, clipped })
+        // A few extra columns at most: a small allocation per row only when asked for.
+        let mut cells: Vec<&[u8]> = Vec::with_capacity(columns.len() - first_extra);
+        for i in first_extra..columns.len() {
+            cells.push(required(&row, file, &columns, i)?);
+        }
+        visit(LossRow { key, line: row.line, loss: value, clipped }, &cells)
     })?;
     Ok(last_line)
 }

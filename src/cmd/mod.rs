@@ -4,4 +4,5 @@
 pub mod bound;
 pub mod demo;
 pub mod rules;
+pub mod slices;
 pub mod track;

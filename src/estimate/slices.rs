@@ -26,17 +26,30 @@
 
 use std::collections::HashMap;
 
-use super::{binomial, betting, Bounds};
+use super::{betting, binomial, Bounds};
 
 /// A slice of the window, as reported.
 #[derive(Clone, Debug, PartialEq)]
 pub enum Slice {
-    Category { feature: String, value: String },
-    Conjunction { parts: Vec<(String, String)> },
+    Category {
+        feature: String,
+        value: String,
+    },
+    Conjunction {
+        parts: Vec<(String, String)>,
+    },
     /// {x ≤ high} when `low` is None, {x > low} when `high` is None.
-    Threshold { feature: String, low: Option<f64>, high: Option<f64> },
+    Threshold {
+        feature: String,
+        low: Option<f64>,
+        high: Option<f64>,
+    },
     /// {low < x ≤ high}.
-    Interval { feature: String, low: f64, high: f64 },
+    Interval {
+        feature: String,
+        low: f64,
+        high: f64,
+    },
 }
 
 impl Slice {
@@ -63,7 +76,9 @@ impl Slice {
     pub fn describe(&self) -> String {
         match self {
             Slice::Category { feature, value } => format!("{feature}={value}"),
-            Slice::Conjunction { parts } => parts.iter().map(|(f, v)| format!("{f}={v}")).collect::<Vec<_>>().join(" & "),
+            Slice::Conjunction { parts } => {
+                parts.iter().map(|(f, v)| format!("{f}={v}")).collect::<Vec<_>>().join(" & ")
+            }
             Slice::Threshold { feature, low: None, high: Some(h) } => format!("{feature} <= {h}"),
             Slice::Threshold { feature, low: Some(l), .. } => format!("{feature} > {l}"),
             Slice::Threshold { feature, .. } => format!("{feature} (all)"),
@@ -269,7 +284,11 @@ impl Scanner {
             }
             if u >= 2 {
                 out.push(Found {
-                    slice: Slice::Interval { feature: f.name.clone(), low: f.values[arg.0 - 1], high: f.values[arg.1 - 1] },
+                    slice: Slice::Interval {
+                        feature: f.name.clone(),
+                        low: f.values[arg.0 - 1],
+                        high: f.values[arg.1 - 1],
+                    },
                     sum: best,
                 });
             }
@@ -316,9 +335,9 @@ pub fn contains(t: &Table, s: &Slice, r: usize) -> bool {
     match s {
         Slice::Category { feature, value } => cat(feature, value),
         Slice::Conjunction { parts } => parts.iter().all(|(f, v)| cat(f, v)),
-        Slice::Threshold { feature, low, high } => num(feature).is_some_and(|x| {
-            low.is_none_or(|l| x > l) && high.is_none_or(|h| x <= h)
-        }),
+        Slice::Threshold { feature, low, high } => {
+            num(feature).is_some_and(|x| low.is_none_or(|l| x > l) && high.is_none_or(|h| x <= h))
+        }
         Slice::Interval { feature, low, high } => num(feature).is_some_and(|x| x > *low && x <= *high),
     }
 }
@@ -410,7 +429,8 @@ pub fn localized(t: &Table, scan_rows: &[u32], theta: f64, delta: f64, rng: &mut
         let mut order: Vec<usize> = (0..scan_rows.len()).collect();
         order.sort_by(|&a, &b| values[scan_rows[a] as usize].total_cmp(&values[scan_rows[b] as usize]));
         let (mut a, mut q) = (0.0, 0.0);
-        let (ta, tq): (f64, f64) = order.iter().fold((0.0, 0.0), |(x, y), &p| (x + s[p] * excess[p], y + excess[p] * excess[p]));
+        let (ta, tq): (f64, f64) =
+            order.iter().fold((0.0, 0.0), |(x, y), &p| (x + s[p] * excess[p], y + excess[p] * excess[p]));
         for (j, &p) in order.iter().enumerate() {
             a += s[p] * excess[p];
             q += excess[p] * excess[p];
@@ -462,3 +482,116 @@ pub fn confirm(losses: &[f64], binary: bool, delta: f64) -> Bounds {
 
 #[cfg(test)]
 mod tests;
+
+/// What one analysis asks for.
+#[derive(Clone, Debug)]
+pub struct Plan {
+    /// θ scaled to [0, 1].
+    pub theta: f64,
+    /// Total error probability: half to split-confirm, half to the uniform certificate.
+    pub delta: f64,
+    pub top: usize,
+    pub seed: u64,
+    pub sign_draws: usize,
+    pub depth: usize,
+}
+
+/// One reported slice, in loss units scaled to [0, 1].
+#[derive(Clone, Debug)]
+pub struct SliceReport {
+    pub slice: Slice,
+    /// Rows of the whole window in the slice, and their mean loss.
+    pub n: u64,
+    pub mean: f64,
+    pub lower: f64,
+    pub upper: f64,
+    /// "split-confirm" or "uniform": the certificate behind `lower`/`upper`.
+    pub certified_by: &'static str,
+    pub violates_sla: bool,
+}
+
+/// The analysis of one window.
+#[derive(Clone, Debug)]
+pub struct Report {
+    pub n: usize,
+    pub uniform: Uniform,
+    pub localized: Localized,
+    /// δ of each certificate: split-confirm spends `split_delta / confirmed` per slice.
+    pub split_delta: f64,
+    pub confirmed: usize,
+    pub uniform_delta: f64,
+    pub slices: Vec<SliceReport>,
+}
+
+/// Scans `t` for slices whose risk exceeds θ and certifies what it finds (module comment).
+pub fn analyze(t: &Table, plan: &Plan) -> Report {
+    let n = t.losses.len();
+    let binary = t.losses.iter().all(|&l| l == 0.0 || l == 1.0);
+    let (split_delta, uniform_delta) = (plan.delta / 2.0, plan.delta / 2.0);
+    let mut rng = Seeded::new(plan.seed);
+    // The seeded split: discover on half A, confirm on half B.
+    let mut perm: Vec<u32> = (0..n as u32).collect();
+    for i in (1..n).rev() {
+        let j = (rng.next_u64() % (i as u64 + 1)) as usize;
+        perm.swap(i, j);
+    }
+    let (half_a, half_b) = perm.split_at(n / 2);
+    let scan_a = Scanner::new(t, Some(half_a), plan.depth);
+    let excess_a: Vec<f64> = half_a.iter().map(|&r| t.losses[r as usize] - plan.theta).collect();
+    let found: Vec<Slice> =
+        scan_a.candidates(&excess_a).into_iter().filter(|f| f.sum > 0.0).take(plan.top).map(|f| f.slice).collect();
+    let confirmed = found.len();
+    let per_slice = split_delta / confirmed.max(1) as f64;
+
+    let scan = Scanner::new(t, None, plan.depth);
+    let excess: Vec<f64> = t.losses.iter().map(|&l| l - plan.theta).collect();
+    let uniform = uniform(&scan, &excess, plan.theta, plan.sign_draws.max(1), uniform_delta, &mut rng);
+    let all: Vec<u32> = (0..n as u32).collect();
+    let localized = localized(t, &all, plan.theta, plan.delta, &mut rng);
+
+    // Report what either route found: the split's discoveries and the full window's worst.
+    let mut slices: Vec<(Slice, bool)> = found.into_iter().map(|s| (s, true)).collect();
+    for f in scan.candidates(&excess).into_iter().filter(|f| f.sum > 0.0).take(plan.top) {
+        if !slices.iter().any(|(s, _)| s == &f.slice) {
+            slices.push((f.slice, false));
+        }
+    }
+    let mut reports: Vec<SliceReport> = slices
+        .into_iter()
+        .map(|(slice, split_found)| {
+            let members: Vec<usize> = (0..n).filter(|&r| contains(t, &slice, r)).collect();
+            let sum: f64 = members.iter().map(|&r| t.losses[r]).sum();
+            let n_s = members.len();
+            let scan_stat = (sum - plan.theta * n_s as f64) / n as f64;
+            let uniform_lower = if scan_stat - uniform.deviation > 0.0 {
+                (plan.theta + scan_stat - uniform.deviation).min(1.0)
+            } else {
+                0.0
+            };
+            let (mut lower, mut upper, mut by) = (uniform_lower, 1.0, "uniform");
+            if split_found {
+                let held: Vec<f64> = half_b
+                    .iter()
+                    .filter(|&&r| contains(t, &slice, r as usize))
+                    .map(|&r| t.losses[r as usize])
+                    .collect();
+                let b = confirm(&held, binary, per_slice);
+                if b.lower >= uniform_lower {
+                    (lower, upper, by) = (b.lower, b.upper, "split-confirm");
+                }
+            }
+            SliceReport {
+                slice,
+                n: n_s as u64,
+                mean: if n_s == 0 { 0.0 } else { sum / n_s as f64 },
+                lower,
+                upper,
+                certified_by: by,
+                violates_sla: lower > plan.theta,
+            }
+        })
+        .collect();
+    reports.sort_by(|a, b| b.lower.total_cmp(&a.lower).then(b.mean.total_cmp(&a.mean)));
+    reports.truncate(plan.top);
+    Report { n, uniform, localized, split_delta, confirmed, uniform_delta, slices: reports }
+}

@@ -109,7 +109,11 @@ fn every_supremum_agrees_with_brute_force_on_tied_data() {
         // class, but not reported as a slice).
         let whole: f64 = w.iter().sum();
         assert!(top.sum <= fast + 1e-12, "seed {seed}");
-        assert!(fast <= 0.0 || top.sum >= fast - 1e-12 || (whole - fast).abs() < 1e-12, "seed {seed}: {} vs {fast}", top.sum);
+        assert!(
+            fast <= 0.0 || top.sum >= fast - 1e-12 || (whole - fast).abs() < 1e-12,
+            "seed {seed}: {} vs {fast}",
+            top.sum
+        );
     }
 }
 
@@ -125,7 +129,11 @@ fn massarts_bound_holds_for_a_finite_class() {
     let g: Vec<Vec<f64>> = ["x", "y", "z"]
         .iter()
         .map(|v| (0..n).map(|i| if t.categorical[0].1[i] == *v { t.losses[i] - theta } else { 0.0 }).collect())
-        .chain(["p", "q"].iter().map(|v| (0..n).map(|i| if t.categorical[1].1[i] == *v { t.losses[i] - theta } else { 0.0 }).collect()))
+        .chain(
+            ["p", "q"]
+                .iter()
+                .map(|v| (0..n).map(|i| if t.categorical[1].1[i] == *v { t.losses[i] - theta } else { 0.0 }).collect()),
+        )
         .collect();
     let exact = exact_mean(n, |s| {
         g.iter().map(|gj| gj.iter().zip(s).map(|(x, si)| si * (x - c0)).sum::<f64>()).fold(f64::NEG_INFINITY, f64::max)
@@ -136,4 +144,3 @@ fn massarts_bound_holds_for_a_finite_class() {
     assert!(exact <= massart, "{exact} > {massart}");
     assert!(exact > 0.0);
 }
-
