@@ -186,6 +186,9 @@ struct SlicesArgs {
     /// Print the JSON document (the only output format)
     #[arg(long)]
     json: bool,
+    /// Print the scan's time split to standard error (used by the benchmark)
+    #[arg(long, hide = true)]
+    timings: bool,
 }
 
 fn parse_confidence(s: &str) -> Result<Confidence, String> {
@@ -332,7 +335,9 @@ fn run_slices(a: &SlicesArgs) -> anyhow::Result<()> {
         sign_draws: a.sign_draws as usize,
     };
     let _ = a.json; // JSON is the one output format; the flag is accepted for symmetry
-    let doc = with_input(&a.input.file, |src| Ok(riskbound::cmd::slices::run(&plan, src).map_err(BoundError::from)?))?;
+    let doc = with_input(&a.input.file, |src| {
+        Ok(riskbound::cmd::slices::run(&plan, src, a.timings).map_err(BoundError::from)?)
+    })?;
     let stdout = io::stdout();
     let mut out = BufWriter::new(stdout.lock());
     serde_json::to_writer(&mut out, &doc).context("writing JSON")?;

@@ -72,9 +72,36 @@ fn slice_json(s: &Slice) -> Value {
     json!({"feature": s.feature(), "kind": s.kind(), "value": value, "low": low, "high": high, "parts": parts})
 }
 
-/// Runs the analysis and returns the JSON document.
-pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Value, DecodeError> {
+/// Seconds spent indexing the window (sorts and groupings) and on the uniform certificate's
+/// sign draws, measured apart from the rest for the benchmark (bench/slices_bench.py).
+pub fn time_scan(plan: &Plan, t: &Table) -> (f64, f64, f64) {
+    let theta = plan.sla_max_risk / plan.input.loss.max();
+    let started = std::time::Instant::now();
+    let scan = slices::Scanner::new(t, None, plan.depth);
+    let index = started.elapsed().as_secs_f64();
+    let excess: Vec<f64> = t.losses.iter().map(|l| l - theta).collect();
+    let started = std::time::Instant::now();
+    let u = slices::uniform(
+        &scan,
+        &excess,
+        theta,
+        plan.sign_draws,
+        plan.confidence.delta() / 2.0,
+        &mut slices::Seeded::new(plan.seed),
+    );
+    (index, started.elapsed().as_secs_f64(), u.rademacher)
+}
+
+/// Runs the analysis and returns the JSON document; with `timings`, prints the scan's time
+/// split to standard error first.
+pub fn run<R: Read>(plan: &Plan, src: R, timings: bool) -> Result<Value, DecodeError> {
+    let started = std::time::Instant::now();
     let t = read(plan, src)?;
+    if timings {
+        eprintln!("timing read {:.6}", started.elapsed().as_secs_f64());
+        let (index, scan, r) = time_scan(plan, &t);
+        eprintln!("timing index {index:.6}\ntiming scan {scan:.6}\nrademacher {r:.17}");
+    }
     let b = plan.input.loss.max();
     let report = slices::analyze(
         &t,

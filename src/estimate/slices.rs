@@ -377,20 +377,71 @@ pub struct Uniform {
 
 /// R̃_k and ε (Theorem U1) for the slice class on `scan`'s rows with weights `excess`
 /// (= l − θ, scaled), k sign vectors from `rng`, at level δ.
+///
+/// The sign vector lives in a bitset (n/8 bytes: in L1 cache for n up to ~2·10^5), and each
+/// numeric feature's excess is laid out once in its sorted order, so a draw reads every
+/// feature's data sequentially and looks up only sign bits at random.
 pub fn uniform(scan: &Scanner, excess: &[f64], theta: f64, k: usize, delta: f64, rng: &mut Seeded) -> Uniform {
     let n = scan.n() as f64;
     let c0 = 0.5 - theta; // centre of [−θ, 1 − θ]
-    let mut w = vec![0.0; excess.len()];
-    let mut scratch = Vec::new();
+    let sorted: Vec<Vec<f64>> =
+        scan.nums.iter().map(|f| f.order.iter().map(|&i| excess[i as usize]).collect()).collect();
+    let mut bits = vec![0u64; scan.n().div_ceil(64)];
+    let mut groups: Vec<f64> = Vec::new();
     let mut total = 0.0;
     for _ in 0..k {
-        let mut sign_sum = 0.0;
-        for (wi, &e) in w.iter_mut().zip(excess) {
-            let s = rng.sign();
-            sign_sum += s;
-            *wi = s * e;
+        for b in bits.iter_mut() {
+            *b = rng.next_u64();
         }
-        total += scan.sup(&w, &mut scratch) / n - c0 * sign_sum / n;
+        if scan.n() % 64 != 0 {
+            let last = bits.len() - 1;
+            bits[last] &= (1u64 << (scan.n() % 64)) - 1;
+        }
+        let ones: u32 = bits.iter().map(|b| b.count_ones()).sum();
+        let sign_sum = 2.0 * f64::from(ones) - n;
+        // ±e without a branch (random signs defeat branch prediction): flip e's sign bit when
+        // the sign bit of the draw is 0.
+        let signed = |i: u32, e: f64| -> f64 {
+            let off = (bits[(i >> 6) as usize] >> (i & 63) & 1) ^ 1;
+            f64::from_bits(e.to_bits() ^ (off << 63))
+        };
+        let mut best = 0.0_f64;
+        for c in &scan.cats {
+            // Four bin arrays, rows dealt round-robin: consecutive rows of the same category
+            // no longer wait on each other's add.
+            let m = c.labels.len();
+            groups.clear();
+            groups.resize(4 * m, 0.0);
+            for (i, (&code, &e)) in c.codes.iter().zip(excess).enumerate() {
+                groups[(i & 3) * m + code as usize] += signed(i as u32, e);
+            }
+            for g in 0..m {
+                best = best.max(groups[g] + groups[m + g] + groups[2 * m + g] + groups[3 * m + g]);
+            }
+        }
+        for (f, es) in scan.nums.iter().zip(&sorted) {
+            groups.clear();
+            let mut start = 0usize;
+            for &end in &f.ends {
+                let end = end as usize;
+                // Four partial sums: a single running f64 sum is a chain of dependent adds.
+                let mut acc = [0.0_f64; 4];
+                let (ord, ex) = (&f.order[start..end], &es[start..end]);
+                let split = ord.len() - ord.len() % 4;
+                for (oc, ec) in ord[..split].chunks_exact(4).zip(ex[..split].chunks_exact(4)) {
+                    for l in 0..4 {
+                        acc[l] += signed(oc[l], ec[l]);
+                    }
+                }
+                for (&i, &e) in ord[split..].iter().zip(&ex[split..]) {
+                    acc[0] += signed(i, e);
+                }
+                groups.push((acc[0] + acc[1]) + (acc[2] + acc[3]));
+                start = end;
+            }
+            best = best.max(max_prefix(&groups)).max(max_suffix(&groups)).max(max_subarray(&groups));
+        }
+        total += best / n - c0 * sign_sum / n;
     }
     let rademacher = total / k as f64;
     let deviation = 2.0 * rademacher + ((9.0 + 4.0 / k as f64) * (1.0 / delta).ln() / (2.0 * n)).sqrt();

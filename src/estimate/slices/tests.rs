@@ -144,3 +144,23 @@ fn massarts_bound_holds_for_a_finite_class() {
     assert!(exact <= massart, "{exact} > {massart}");
     assert!(exact > 0.0);
 }
+
+#[test]
+fn uniform_equals_the_plain_computation_with_the_same_signs() {
+    // The bitset path of `uniform` against w = s·e and `Scanner::sup`, draw by draw.
+    let t = table(3, 777);
+    let theta = 0.15;
+    let scan = Scanner::new(&t, None, 2);
+    let excess: Vec<f64> = t.losses.iter().map(|l| l - theta).collect();
+    let got = uniform(&scan, &excess, theta, 7, 0.05, &mut Seeded::new(9));
+    let mut rng = Seeded::new(9);
+    let n = excess.len();
+    let mut total = 0.0;
+    for _ in 0..7 {
+        let words: Vec<u64> = (0..n.div_ceil(64)).map(|_| rng.next_u64()).collect();
+        let s: Vec<f64> = (0..n).map(|i| if words[i / 64] >> (i % 64) & 1 == 1 { 1.0 } else { -1.0 }).collect();
+        let w: Vec<f64> = s.iter().zip(&excess).map(|(a, b)| a * b).collect();
+        total += scan.sup(&w, &mut Vec::new()) / n as f64 - (0.5 - theta) * s.iter().sum::<f64>() / n as f64;
+    }
+    assert!((got.rademacher - total / 7.0).abs() < 1e-12, "{} vs {}", got.rademacher, total / 7.0);
+}
