@@ -186,6 +186,14 @@ struct SlicesArgs {
     /// Print the JSON document (the only output format)
     #[arg(long)]
     json: bool,
+    /// A slice fixed in advance (repeatable): F=V, F=V&G=W, F<=T, F>T or A<F<=B; bounded on the
+    /// whole file at δ/M each
+    #[arg(long, value_name = "SLICE")]
+    registered: Vec<String>,
+    /// Score column: also bound the error of a decision threshold re-tuned on this file,
+    /// uniformly over all thresholds (needs --label-column with labels 0 or 1)
+    #[arg(long, value_name = "S", requires = "label_column")]
+    score_column: Option<String>,
     /// Print the scan's time split to standard error (used by the benchmark)
     #[arg(long, hide = true)]
     timings: bool,
@@ -333,6 +341,15 @@ fn run_slices(a: &SlicesArgs) -> anyhow::Result<()> {
         top: a.top as usize,
         seed: a.seed,
         sign_draws: a.sign_draws as usize,
+        score: a.score_column.clone(),
+        registered: a
+            .registered
+            .iter()
+            .map(|r| {
+                riskbound::cmd::slices::parse_slice(r, &a.categorical, &a.numeric)
+                    .map_err(|e| UsageError(format!("--registered {r:?}: {e}")))
+            })
+            .collect::<Result<_, _>>()?,
     };
     let _ = a.json; // JSON is the one output format; the flag is accepted for symmetry
     let doc = with_input(&a.input.file, |src| {

@@ -182,3 +182,145 @@ fn bad_input_is_located() {
         );
     }
 }
+
+#[test]
+fn a_retuned_threshold_gets_a_uniform_bound() {
+    let dir = TempDir::new("slices-thr");
+    // y = 1 with probability score; the window's best threshold is near 0.5.
+    let mut s = 9u64;
+    let mut u = || {
+        s = s.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+        (s >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let mut csv = String::from("score,p,y,region\n");
+    let mut rows = Vec::new();
+    for _ in 0..3000 {
+        let score = (u() * 100.0).round() / 100.0;
+        let y = u() < score;
+        rows.push((score, y));
+        csv += &format!("{score},1,{},r{}\n", u8::from(y), (u() * 3.0) as u8);
+    }
+    std::fs::write(dir.path("t.csv"), csv).unwrap();
+    let out = riskbound(&[
+        "slices",
+        dir.path("t.csv").to_str().unwrap(),
+        "--prediction-column",
+        "p",
+        "--label-column",
+        "y",
+        "--loss",
+        "zero-one",
+        "--categorical",
+        "region",
+        "--sla-max-risk",
+        "0.5",
+        "--score-column",
+        "score",
+        "--json",
+    ]);
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let doc: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let r = &doc["recalibrated_threshold"];
+    let t = r["best_threshold"].as_f64().unwrap();
+    // The window error at the reported threshold, counted here from the rows written.
+    let errors = rows.iter().filter(|(sc, y)| (*sc > t) != *y).count() as f64 / 3000.0;
+    assert!((r["empirical_risk"].as_f64().unwrap() - errors).abs() < 1e-12, "{r}");
+    // No other threshold on the grid does better.
+    for k in 0..=100 {
+        let tk = k as f64 / 100.0;
+        let e = rows.iter().filter(|(sc, y)| (*sc > tk) != *y).count() as f64 / 3000.0;
+        assert!(e >= errors - 1e-12, "threshold {tk} beats {t}");
+    }
+    assert!((0.3..=0.7).contains(&t), "{t}");
+    let upper = r["upper"].as_f64().unwrap();
+    assert!(upper > errors && (upper - errors - r["deviation"].as_f64().unwrap()).abs() < 1e-12);
+    // Labels other than 0/1 are a located error.
+    std::fs::write(dir.path("bad.csv"), "score,p,y,region\n0.5,1,1,a\n0.4,1,yes,a\n").unwrap();
+    let out = riskbound(&[
+        "slices",
+        dir.path("bad.csv").to_str().unwrap(),
+        "--prediction-column",
+        "p",
+        "--label-column",
+        "y",
+        "--loss",
+        "zero-one",
+        "--categorical",
+        "region",
+        "--sla-max-risk",
+        "0.5",
+        "--score-column",
+        "score",
+    ]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        String::from_utf8_lossy(&out.stderr).contains("bad.csv:3: column y"),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+}
+
+#[test]
+fn registered_slices_get_fixed_predictor_bounds_at_delta_over_m() {
+    let dir = TempDir::new("slices-reg");
+    // Region ne: 100 rows, 12 wrong; the fixture has scipy's Clopper-Pearson for (100, 12).
+    let mut csv = String::from("loss,region,w\n");
+    for i in 0..100 {
+        csv += &format!("{},ne,{}\n", u8::from([3, 8, 15, 22, 41, 47, 56, 60, 71, 77, 85, 98].contains(&i)), i);
+    }
+    for i in 0..300 {
+        csv += &format!("{},sw,{}\n", u8::from(i % 10 == 0), i);
+    }
+    std::fs::write(dir.path("r.csv"), csv).unwrap();
+    let f = dir.path("r.csv");
+    let run = |extra: &[&str]| -> Value {
+        let mut args = vec![
+            "slices",
+            f.to_str().unwrap(),
+            "--loss-column",
+            "loss",
+            "--loss-max",
+            "1",
+            "--categorical",
+            "region",
+            "--numeric",
+            "w",
+            "--sla-max-risk",
+            "0.1",
+        ];
+        args.extend_from_slice(extra);
+        let out = riskbound(&args);
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        serde_json::from_slice(&out.stdout).unwrap()
+    };
+    let doc = run(&["--registered", "region=ne"]);
+    let r = &doc["registered"][0];
+    assert_eq!(r["n"], 100);
+    // Source: scipy.stats.beta.ppf via tests/reference/bounds_fixture.json, (n, k) = (100, 12), M = 1.
+    let (lo, up) = common::fixture_cp(100, 12, 0.95);
+    assert!((r["lower"].as_f64().unwrap() - lo).abs() < 1e-10 * lo, "{r}");
+    assert!((r["upper"].as_f64().unwrap() - up).abs() < 1e-10 * up, "{r}");
+    assert_eq!(r["method"], "clopper-pearson");
+    // Two registered slices: δ/2 each.
+    let doc = run(&["--registered", "region=ne", "--registered", "10<w<=20"]);
+    assert_eq!(doc["registered"].as_array().unwrap().len(), 2);
+    assert!((doc["registered"][0]["delta"].as_f64().unwrap() - (1.0 - 0.95) / 2.0).abs() < 1e-15);
+    assert_eq!(doc["registered"][1]["kind"], "interval");
+    assert_eq!(doc["registered"][1]["n"], 20, "10 < w <= 20 holds w = 11..20 of each region");
+    let out = riskbound(&[
+        "slices",
+        f.to_str().unwrap(),
+        "--loss-column",
+        "loss",
+        "--loss-max",
+        "1",
+        "--categorical",
+        "region",
+        "--sla-max-risk",
+        "0.1",
+        "--registered",
+        "colour=red",
+    ]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("\"colour\" is not a --categorical feature"));
+}

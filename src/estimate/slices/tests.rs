@@ -164,3 +164,43 @@ fn uniform_equals_the_plain_computation_with_the_same_signs() {
     }
     assert!((got.rademacher - total / 7.0).abs() < 1e-12, "{} vs {}", got.rademacher, total / 7.0);
 }
+
+#[test]
+fn threshold_class_supremum_agrees_with_brute_force() {
+    for seed in 0..100u64 {
+        let mut r = Seeded::new(seed);
+        let n = 3 + (seed as usize % 30);
+        let scores: Vec<f64> = (0..n).map(|_| (r.next_u64() % 6) as f64 / 5.0).collect();
+        let y: Vec<bool> = (0..n).map(|_| r.next_u64() % 3 == 0).collect();
+        let s: Vec<f64> = (0..n).map(|_| r.sign()).collect();
+        let rec = recalibrated(&scores, &y, 1, 0.05, &mut Seeded::new(1));
+        let mut vals = scores.clone();
+        vals.sort_by(f64::total_cmp);
+        vals.dedup();
+        let mut ts: Vec<Option<f64>> = vec![None];
+        ts.extend(vals.iter().map(|&v| Some(v)));
+        let loss = |t: Option<f64>, i: usize| -> f64 {
+            let predicted = t.is_none_or(|t| scores[i] > t);
+            f64::from(u8::from(predicted != y[i]))
+        };
+        let brute =
+            ts.iter().map(|&t| (0..n).map(|i| s[i] * loss(t, i)).sum::<f64>()).fold(f64::NEG_INFINITY, f64::max);
+        let mut order: Vec<u32> = (0..n as u32).collect();
+        order.sort_by(|&a, &b| scores[a as usize].total_cmp(&scores[b as usize]));
+        let mut groups: Vec<Vec<u32>> = Vec::new();
+        let mut last = None;
+        for &i in &order {
+            if last != Some(scores[i as usize]) {
+                groups.push(Vec::new());
+                last = Some(scores[i as usize]);
+            }
+            groups.last_mut().unwrap().push(i);
+        }
+        assert!((threshold_sup(&groups, &y, &s) - brute).abs() < 1e-12, "seed {seed}");
+        // The reported threshold minimises the window error.
+        let min_err = ts.iter().map(|&t| (0..n).map(|i| loss(t, i)).sum::<f64>()).fold(f64::INFINITY, f64::min);
+        let at = (0..n).map(|i| loss(rec.threshold, i)).sum::<f64>();
+        assert_eq!(at, min_err, "seed {seed}");
+        assert!((rec.empirical_risk - min_err / n as f64).abs() < 1e-12);
+    }
+}
