@@ -113,7 +113,13 @@ impl Pipeline {
         };
         let src = if c.kind == Kind::Prediction { &model.predictions } else { &model.labels };
         let format = src.format.or_else(|| Format::from_path(&c.path)).unwrap_or(Format::Csv);
-        let columns = Columns { id: &src.id_column, time: &src.time_column, value: &src.value_column };
+        // Slice features travel with predictions (they describe the request, not the outcome).
+        let features = match (&model.slices, c.kind) {
+            (Some(sl), Kind::Prediction) => sl.columns(),
+            _ => Vec::new(),
+        };
+        let columns =
+            Columns { id: &src.id_column, time: &src.time_column, value: &src.value_column, features: &features };
         let mut records = Vec::new();
         let mut rejects = Vec::new();
         let started = Instant::now();

@@ -59,6 +59,19 @@ struct RawModel {
     window_guarantee: Option<Spanned<String>>,
     sla: Option<Spanned<RawSla>>,
     alerts: Option<Spanned<RawAlerts>>,
+    slices: Option<Spanned<RawSlices>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSlices {
+    categorical: Option<Vec<Spanned<String>>>,
+    numeric: Option<Vec<Spanned<String>>>,
+    depth: Option<Spanned<i64>>,
+    registered: Option<Vec<Spanned<String>>>,
+    top: Option<Spanned<i64>>,
+    sign_draws: Option<Spanned<i64>>,
+    decide_state: Option<Spanned<bool>>,
 }
 
 #[derive(Deserialize)]
@@ -156,6 +169,31 @@ pub struct ModelConfig {
     pub sla: Option<SlaConfig>,
     /// Thresholds of the generated operational alerts (`riskbound rules`).
     pub alerts: AlertsConfig,
+    /// The slice search per window, if configured (needs an sla).
+    pub slices: Option<SlicesConfig>,
+}
+
+/// The slice search of a model's windows (estimate/slices.rs). The feature columns are read
+/// from the prediction files.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SlicesConfig {
+    pub categorical: Vec<String>,
+    pub numeric: Vec<String>,
+    pub depth: usize,
+    /// Slices fixed in advance: per-window bounds at δ/M each (Bonferroni).
+    pub registered: Vec<crate::estimate::slices::Slice>,
+    /// Slices exported per window (bounded cardinality: a `rank` label 1..top).
+    pub top: usize,
+    pub sign_draws: usize,
+    /// A certified violating slice makes the window `violated`.
+    pub decide_state: bool,
+}
+
+impl SlicesConfig {
+    /// The feature columns in the order records carry them: categorical, then numeric.
+    pub fn columns(&self) -> Vec<String> {
+        self.categorical.iter().chain(&self.numeric).cloned().collect()
+    }
 }
 
 /// Thresholds of the operational alerts `riskbound rules` generates.
@@ -746,6 +784,59 @@ impl Checker {
                 }
             }
         }
+        let slices = raw.slices.as_ref().map(|sl| {
+            let at = sl;
+            let sl = &sl.value;
+            let key = format!("{k}.slices");
+            if raw.sla.is_none() {
+                self.push(at, &key, "slices need an sla: they are searched for risk above max_risk");
+            }
+            let names = |list: &Option<Vec<Spanned<String>>>, what: &str, this: &mut Checker| -> Vec<String> {
+                let mut out = Vec::new();
+                for n in list.iter().flatten() {
+                    if n.value.trim().is_empty() {
+                        this.push(n, &format!("{key}.{what}"), "column names must not be empty");
+                    } else if out.contains(&n.value) {
+                        this.push(n, &format!("{key}.{what}"), format!("duplicate column {:?}", n.value));
+                    } else {
+                        out.push(n.value.clone());
+                    }
+                }
+                out
+            };
+            let categorical = names(&sl.categorical, "categorical", self);
+            let numeric = names(&sl.numeric, "numeric", self);
+            if categorical.is_empty() && numeric.is_empty() {
+                self.push(at, &key, "name at least one categorical or numeric feature column");
+            }
+            let ranged =
+                |v: &Option<Spanned<i64>>, what: &str, lo: i64, hi: i64, default: i64, this: &mut Checker| -> usize {
+                    match v {
+                        None => default as usize,
+                        Some(x) if (lo..=hi).contains(&x.value) => x.value as usize,
+                        Some(x) => {
+                            this.push(
+                                x,
+                                &format!("{key}.{what}"),
+                                format!("must lie in [{lo}, {hi}], got {}", x.value),
+                            );
+                            default as usize
+                        }
+                    }
+                };
+            let depth = ranged(&sl.depth, "depth", 1, 3, 1, self);
+            let top = ranged(&sl.top, "top", 1, 50, 5, self);
+            let sign_draws = ranged(&sl.sign_draws, "sign_draws", 1, 1000, 20, self);
+            let mut registered = Vec::new();
+            for r in sl.registered.iter().flatten() {
+                match crate::estimate::slices::parse_slice(&r.value, &categorical, &numeric) {
+                    Ok(s) => registered.push(s),
+                    Err(e) => self.push(r, &format!("{key}.registered"), e),
+                }
+            }
+            let decide_state = sl.decide_state.as_ref().is_some_and(|d| d.value);
+            SlicesConfig { categorical, numeric, depth, registered, top, sign_draws, decide_state }
+        });
         let window_guarantee = match &raw.window_guarantee {
             None => WindowGuarantee::PerWindow,
             Some(g) => match g.value.as_str() {
@@ -773,6 +864,7 @@ impl Checker {
             window_guarantee,
             sla,
             alerts,
+            slices,
         })
     }
 }

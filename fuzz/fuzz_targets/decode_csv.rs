@@ -9,7 +9,7 @@ use riskbound::ingest::records::{decode_records, Columns};
 use riskbound::ingest::Format;
 
 fuzz_target!(|data: &[u8]| {
-    let cols = Columns { id: "id", time: "t", value: "p" };
+    let cols = Columns { id: "id", time: "t", value: "p", features: &[] };
     let capped = CappedLines::new(data, 4096);
     let _ = decode_records(capped, Format::Csv, "fuzz.csv", &cols, 4096, |r| assert!(r.line >= 1), |r| assert!(!r.message.is_empty()));
 });

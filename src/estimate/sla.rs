@@ -35,6 +35,8 @@ pub enum SlaReason {
     BoundsStraddleMax,
     TooFewSamples,
     LowLabelCoverage,
+    /// A slice's certified lower bound is above max_risk (with `slices.decide_state`).
+    SliceAboveMax,
 }
 
 impl SlaReason {
@@ -46,6 +48,7 @@ impl SlaReason {
             SlaReason::BoundsStraddleMax => "bounds straddle max_risk",
             SlaReason::TooFewSamples => "fewer samples than min_samples",
             SlaReason::LowLabelCoverage => "label coverage below min_label_coverage",
+            SlaReason::SliceAboveMax => "a slice's certified lower bound is above max_risk",
         }
     }
 }

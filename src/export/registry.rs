@@ -57,6 +57,13 @@ pub mod names {
     pub const ALARM_MAX_RISK: &str = "riskbound_alarm_max_risk";
     pub const RESET_TIME: &str = "riskbound_anytime_reset_timestamp_seconds";
     pub const RESETS: &str = "riskbound_anytime_resets";
+    pub const SLICE_LOWER: &str = "riskbound_slice_risk_lower_bound";
+    pub const SLICE_UPPER: &str = "riskbound_slice_risk_upper_bound";
+    pub const SLICE_INFO: &str = "riskbound_slice_info";
+    pub const SLICE_VIOLATIONS: &str = "riskbound_slice_violations";
+    pub const SLICE_DEVIATION: &str = "riskbound_slice_uniform_deviation";
+    pub const REGISTERED_LOWER: &str = "riskbound_registered_slice_risk_lower_bound";
+    pub const REGISTERED_UPPER: &str = "riskbound_registered_slice_risk_upper_bound";
 }
 
 /// The `guarantee` label value of the anytime sequences: valid at every label at once.
@@ -180,6 +187,48 @@ impl Collector for SnapshotCollector {
             "Unix time of the anytime sequences' reset point (the first sample, or the last riskbound reset)",
             snap.models.iter().filter_map(|m| m.anytime.reset_ms.map(|t| (model(&m.name), t as f64 / 1000.0))),
         )?;
+        let mut sl: [Vec<(Labels, f64)>; 7] = Default::default();
+        for m in &snap.models {
+            for w in &m.windows {
+                let Some(sn) = &w.slices else { continue };
+                for (rank, line) in sn.top.iter().enumerate() {
+                    let mut l = mw(&m.name, &w.name);
+                    l.push(("rank", (rank + 1).to_string()));
+                    sl[0].push((l.clone(), line.lower));
+                    sl[1].push((l.clone(), line.upper));
+                    l.push(("slice", line.description.clone()));
+                    l.push(("kind", line.kind.to_string()));
+                    l.push(("certified_by", line.certified_by.to_string()));
+                    sl[2].push((l, 1.0));
+                }
+                sl[3].push((mw(&m.name, &w.name), sn.violations as f64));
+                sl[4].push((mw(&m.name, &w.name), sn.uniform_deviation));
+                for line in &sn.registered {
+                    let mut l = mw(&m.name, &w.name);
+                    l.push(("slice", line.description.clone()));
+                    sl[5].push((l.clone(), line.lower));
+                    sl[6].push((l, line.upper));
+                }
+            }
+        }
+        let [s_lower, s_upper, s_info, s_viol, s_dev, r_lower, r_upper] = sl;
+        gauges(e, names::SLICE_LOWER, "Certified lower bound on the true risk of the window's rank-th worst slice (riskbound_slice_info names it); valid for how the slice was found (split-confirm or uniform over the whole slice class)", s_lower)?;
+        gauges(e, names::SLICE_UPPER, "Certified upper bound on the true risk of the window's rank-th worst slice (1 = uninformative, for the uniform certificate)", s_upper)?;
+        gauges(e, names::SLICE_INFO, "1 for each exported slice: its description, kind and certificate", s_info)?;
+        gauges(
+            e,
+            names::SLICE_VIOLATIONS,
+            "Slices of the window (found or registered) whose certified lower bound is above the SLA's max_risk",
+            s_viol,
+        )?;
+        gauges(e, names::SLICE_DEVIATION, "ε of the uniform (Rademacher) certificate over the window's slice class: every slice's excess P((l - max_risk) 1_S) is at least its window value minus this", s_dev)?;
+        gauges(
+            e,
+            names::REGISTERED_LOWER,
+            "Lower bound on the true risk of a slice registered in the config (fixed in advance: bound at δ/M each)",
+            r_lower,
+        )?;
+        gauges(e, names::REGISTERED_UPPER, "Upper bound on the true risk of a registered slice (δ/M each)", r_upper)?;
         counters(
             e,
             names::RESETS,
@@ -342,7 +391,14 @@ mod tests {
             confidence: 0.95,
             loss_max: 1.0,
             sla: None,
-            windows: vec![WindowSnapshot { name: "w\"1".into(), n: 3, mean: 0.5, bounds: vec![], state: None }],
+            windows: vec![WindowSnapshot {
+                name: "w\"1".into(),
+                n: 3,
+                mean: 0.5,
+                bounds: vec![],
+                state: None,
+                slices: None,
+            }],
             window_guarantee: crate::config::WindowGuarantee::PerWindow,
             window_confidence: 0.95,
             anytime: crate::window::AnytimeSnapshot {

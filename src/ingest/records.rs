@@ -109,6 +109,8 @@ pub struct Record {
     pub id: String,
     pub time_ms: i64,
     pub value: String,
+    /// The cells of the configured slice feature columns, in config order (predictions only).
+    pub features: Vec<String>,
 }
 
 /// Parses an event time: RFC 3339 (`2026-12-01T10:00:00Z`, any offset) or Unix seconds
@@ -129,6 +131,9 @@ pub struct Columns<'a> {
     pub id: &'a str,
     pub time: &'a str,
     pub value: &'a str,
+    /// Slice feature columns to carry along (empty for label files and for models without
+    /// slices); a row missing one is rejected like a row missing its value.
+    pub features: &'a [String],
 }
 
 /// Decodes every row of one file, calling `on_record` for good rows and `on_reject` for bad
@@ -143,7 +148,8 @@ pub fn decode_records<R: std::io::Read>(
     mut on_record: impl FnMut(Record),
     mut on_reject: impl FnMut(Reject),
 ) -> Result<u64, DecodeError> {
-    let names = [columns.id, columns.time, columns.value];
+    let mut names = vec![columns.id, columns.time, columns.value];
+    names.extend(columns.features.iter().map(String::as_str));
     for_each_row(src, format, file_label, &names, |row| {
         let row = match row {
             Ok(r) => r,
@@ -193,7 +199,8 @@ pub fn decode_records<R: std::io::Read>(
                     row.line, names[1]
                 ),
             })?;
-            Ok(Record { line: row.line, id: id.trim().to_string(), time_ms, value })
+            let features = (3..names.len()).map(|i| text(i).map(|f| f.trim().to_string())).collect::<Result<_, _>>()?;
+            Ok(Record { line: row.line, id: id.trim().to_string(), time_ms, value, features })
         })();
         match result {
             Ok(r) => on_record(r),
@@ -224,7 +231,7 @@ mod tests {
         let body = b"rid,ts,p\na,1700000000,x\nb,noon,y\nc,1700000001\n,1700000002,z\nd,1700000003,w\n";
         let mut good = Vec::new();
         let mut bad = Vec::new();
-        let cols = Columns { id: "rid", time: "ts", value: "p" };
+        let cols = Columns { id: "rid", time: "ts", value: "p", features: &[] };
         decode_records(&body[..], Format::Csv, "f.csv", &cols, 1 << 20, |r| good.push(r), |r| bad.push(r)).unwrap();
         assert_eq!(good.iter().map(|r| r.id.as_str()).collect::<Vec<_>>(), ["a", "d"]);
         let reasons: Vec<_> = bad.iter().map(|r| (r.line, r.reason)).collect();

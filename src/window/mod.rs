@@ -102,6 +102,119 @@ pub struct WindowSnapshot {
     pub bounds: Vec<(Method, Bounds)>,
     /// `None` when the model has no SLA.
     pub state: Option<(SlaState, SlaReason)>,
+    /// The slice search, when the model configures one.
+    pub slices: Option<SliceSnapshot>,
+}
+
+/// One exported slice, in loss units.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SliceLine {
+    pub description: String,
+    pub kind: &'static str,
+    pub n: u64,
+    pub mean: f64,
+    pub lower: f64,
+    pub upper: f64,
+    pub certified_by: &'static str,
+    pub violates: bool,
+}
+
+/// A window's slice search: the worst slices found and certified, and the registered ones.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SliceSnapshot {
+    /// Worst first, at most `slices.top`.
+    pub top: Vec<SliceLine>,
+    pub registered: Vec<SliceLine>,
+    /// ε of the uniform certificate (loss units).
+    pub uniform_deviation: f64,
+    /// Slices of `top` and `registered` certified above max_risk.
+    pub violations: u64,
+}
+
+/// The seed of a window's split and sign draws: fixed, so a scrape can be reproduced from the
+/// same rows with `riskbound slices --seed`.
+pub const SLICE_SEED: u64 = 1;
+
+/// Runs the slice search on a window's rows (loss, features in config order).
+pub fn slice_snapshot(
+    rows: &[(f64, Vec<String>)],
+    model: &ModelConfig,
+    confidence: Confidence,
+) -> Option<SliceSnapshot> {
+    use crate::estimate::slices::{self, Table};
+    let (sl, sla) = (model.slices.as_ref()?, model.sla.as_ref()?);
+    if rows.len() < 2 {
+        return None;
+    }
+    let b = model.loss.max();
+    let nc = sl.categorical.len();
+    let table = Table {
+        losses: rows.iter().map(|(l, _)| (l / b).clamp(0.0, 1.0)).collect(),
+        categorical: sl
+            .categorical
+            .iter()
+            .enumerate()
+            .map(|(i, c)| (c.clone(), rows.iter().map(|r| r.1[i].clone()).collect()))
+            .collect(),
+        numeric: sl
+            .numeric
+            .iter()
+            .enumerate()
+            .map(|(i, c)| {
+                // Checked at ingest; a row stored by an older config that fails is scored as 0.
+                (
+                    c.clone(),
+                    rows.iter().map(|r| crate::loss::parse_number(r.1[nc + i].as_bytes()).unwrap_or(0.0)).collect(),
+                )
+            })
+            .collect(),
+    };
+    let theta = sla.max_risk / b;
+    let report = slices::analyze(
+        &table,
+        &slices::Plan {
+            theta,
+            delta: confidence.delta(),
+            top: sl.top,
+            seed: SLICE_SEED,
+            sign_draws: sl.sign_draws,
+            depth: sl.depth,
+        },
+    );
+    let line = |s: &slices::SliceReport| SliceLine {
+        description: s.slice.describe(),
+        kind: s.slice.kind(),
+        n: s.n,
+        mean: s.mean * b,
+        lower: s.lower * b,
+        upper: s.upper * b,
+        certified_by: s.certified_by,
+        violates: s.violates_sla,
+    };
+    let top: Vec<SliceLine> = report.slices.iter().map(line).collect();
+    let binary = table.losses.iter().all(|&l| l == 0.0 || l == 1.0);
+    let m = sl.registered.len().max(1) as f64;
+    let registered: Vec<SliceLine> = sl
+        .registered
+        .iter()
+        .map(|s| {
+            let held: Vec<f64> =
+                (0..table.losses.len()).filter(|&r| slices::contains(&table, s, r)).map(|r| table.losses[r]).collect();
+            let bd = slices::confirm(&held, binary, confidence.delta() / m);
+            SliceLine {
+                description: s.describe(),
+                kind: s.kind(),
+                n: held.len() as u64,
+                mean: if held.is_empty() { 0.0 } else { b * held.iter().sum::<f64>() / held.len() as f64 },
+                lower: bd.lower * b,
+                upper: bd.upper * b,
+                certified_by: if binary { "clopper-pearson" } else { "betting" },
+                violates: bd.lower > theta,
+            }
+        })
+        .collect();
+    let violations = top.iter().chain(&registered).filter(|s| s.violates).count() as u64;
+    Some(SliceSnapshot { top, registered, uniform_deviation: report.uniform.deviation * b, violations })
 }
 
 /// One model's numbers.
@@ -179,13 +292,33 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
         if spent_out {
             bounds.clear();
         }
-        let state = model.sla.as_ref().map(|sla| match bounds.iter().find(|(m, _)| *m == sla.method) {
+        let mut state = model.sla.as_ref().map(|sla| match bounds.iter().find(|(m, _)| *m == sla.method) {
             Some((_, b)) => {
                 sla::decide(*b, summary.n(), sla.max_risk, sla.min_samples, label_coverage, sla.min_label_coverage)
             }
             None => (SlaState::Inconclusive, SlaReason::TooFewSamples),
         });
-        windows.push(WindowSnapshot { name: w.name.clone(), n: summary.n(), mean: summary.mean(), bounds, state });
+        let slices = match &model.slices {
+            Some(_) => slice_snapshot(&store.window_rows(&model.name, w.kind)?, model, window_confidence),
+            None => None,
+        };
+        // A certified bad slice decides the window only when asked, and never overrides thin
+        // evidence (too few samples, too few labels).
+        if let (Some(sl), Some(sn), Some((st, why))) = (&model.slices, &slices, &mut state) {
+            let thin = matches!(why, SlaReason::TooFewSamples | SlaReason::LowLabelCoverage);
+            if sl.decide_state && sn.violations > 0 && *st != SlaState::Violated && !thin {
+                *st = SlaState::Violated;
+                *why = SlaReason::SliceAboveMax;
+            }
+        }
+        windows.push(WindowSnapshot {
+            name: w.name.clone(),
+            n: summary.n(),
+            mean: summary.mean(),
+            bounds,
+            state,
+            slices,
+        });
     }
     Ok(ModelSnapshot {
         name: model.name.clone(),

@@ -88,6 +88,16 @@ pub struct TrackerState {
 /// A stored tracker row: (state JSON, or NULL after a reset; reset_ms; resets).
 type TrackerRow = (Option<String>, Option<i64>, u64);
 
+/// A joined sample about to be stored.
+struct NewSample<'a> {
+    id: &'a str,
+    t_pred: i64,
+    t_label: i64,
+    loss: f64,
+    /// The prediction's slice features (JSON), if any.
+    features: Option<&'a str>,
+}
+
 /// The samples one file completed, in the order they were joined.
 #[derive(Default)]
 struct Joins {
@@ -193,6 +203,37 @@ fn loss_of(spec: &LossSpec, prediction: &str, label: &str) -> Result<f64, Reject
     }
 }
 
+/// Columns added after the first schema: state written by an older build gains them (NULL:
+/// no slice features recorded for those rows).
+fn migrate(conn: &Connection) -> rusqlite::Result<()> {
+    for table in ["pred", "sample"] {
+        let has: bool =
+            conn.prepare(&format!("SELECT 1 FROM pragma_table_info('{table}') WHERE name = 'features'"))?.exists([])?;
+        if !has {
+            conn.execute_batch(&format!("ALTER TABLE {table} ADD COLUMN features TEXT"))?;
+        }
+    }
+    Ok(())
+}
+
+/// Numeric slice features must parse when the prediction arrives, so a bad cell is rejected
+/// at its own line rather than dropped from every later window.
+fn check_features(model: &ModelConfig, rec: &Record) -> Result<(), (RejectReason, String)> {
+    let Some(sl) = &model.slices else { return Ok(()) };
+    let nc = sl.categorical.len();
+    for (name, v) in sl.numeric.iter().zip(rec.features.iter().skip(nc)) {
+        if loss::parse_number(v.as_bytes()).is_err() {
+            return Err((RejectReason::BadNumber, format!("column {name}: {v:?} is not a number")));
+        }
+    }
+    Ok(())
+}
+
+/// The features of a record as stored: a JSON array of strings, or NULL without slices.
+fn features_json(rec: &Record) -> Option<String> {
+    (!rec.features.is_empty()).then(|| serde_json::to_string(&rec.features).expect("strings serialise"))
+}
+
 /// Checks a value cell when it arrives, so a bad row is rejected at its own line.
 fn check_value(spec: &LossSpec, kind: Kind, value: &str) -> Result<(), RejectReason> {
     match (spec, kind) {
@@ -218,6 +259,7 @@ impl Store {
         conn.pragma_update(None, "cache_size", -65_536)?;
         conn.pragma_update(None, "temp_store", "MEMORY")?;
         conn.execute_batch(SCHEMA)?;
+        migrate(&conn)?;
         Ok(Store { conn })
     }
 
@@ -225,6 +267,7 @@ impl Store {
     pub fn open_in_memory() -> Result<Store, StoreError> {
         let conn = Connection::open_in_memory()?;
         conn.execute_batch(SCHEMA)?;
+        migrate(&conn)?;
         Ok(Store { conn })
     }
 
@@ -312,6 +355,11 @@ impl Store {
                 reject(&mut out, Reject { line: rec.line, reason, message });
                 continue;
             }
+            if let Err((reason, what)) = check_features(model, rec) {
+                let message = format!("{name}:{}: {what}", rec.line);
+                reject(&mut out, Reject { line: rec.line, reason, message });
+                continue;
+            }
             let result = match kind {
                 Kind::Prediction => Self::take_prediction(&tx, model, rec, orphans_held, &mut joins)?,
                 Kind::Label => Self::take_label(&tx, model, rec, &mut orphans_held, &mut joins)?,
@@ -373,17 +421,12 @@ impl Store {
         Ok(out)
     }
 
-    fn insert_sample(
-        tx: &Connection,
-        model: &str,
-        id: &str,
-        t_pred: i64,
-        t_label: i64,
-        loss: f64,
-        joins: &mut Joins,
-    ) -> rusqlite::Result<()> {
-        tx.prepare_cached("INSERT INTO sample (model, id, t_pred, t_label, loss) VALUES (?1, ?2, ?3, ?4, ?5)")?
-            .execute(params![model, id, t_pred, t_label, loss])?;
+    fn insert_sample(tx: &Connection, model: &str, s: NewSample<'_>, joins: &mut Joins) -> rusqlite::Result<()> {
+        let NewSample { id, t_pred, t_label, loss, features } = s;
+        tx.prepare_cached(
+            "INSERT INTO sample (model, id, t_pred, t_label, loss, features) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+        )?
+        .execute(params![model, id, t_pred, t_label, loss, features])?;
         joins.delays.push(((t_label - t_pred).max(0) as f64) / 1000.0);
         joins.losses.push(loss);
         bump(tx, model, "samples_kept", 1.0)
@@ -510,12 +553,13 @@ impl Store {
             Some((_, label, _)) => (LABELLED, Some(label)),
             None => (AWAITING, None),
         };
+        let features = features_json(rec);
         let inserted = tx
             .prepare_cached(
-                "INSERT INTO pred (model, id, t_pred, value, state, label) VALUES (?1, ?2, ?3, ?4, ?5, ?6)
+                "INSERT INTO pred (model, id, t_pred, value, state, label, features) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)
                  ON CONFLICT (model, id) DO NOTHING",
             )?
-            .execute(params![m, rec.id, rec.time_ms, rec.value, state, label])?;
+            .execute(params![m, rec.id, rec.time_ms, rec.value, state, label, features])?;
         if inserted == 0 {
             // The id was seen before; a label taken from the held ones goes back.
             if let Some((t_label, label)) = &orphan {
@@ -526,7 +570,8 @@ impl Store {
         }
         match (joined, &orphan) {
             (Some((t_label, _, l)), _) => {
-                Self::insert_sample(tx, m, &rec.id, rec.time_ms, t_label, l, joins)?;
+                let s = NewSample { id: &rec.id, t_pred: rec.time_ms, t_label, loss: l, features: features.as_deref() };
+                Self::insert_sample(tx, m, s, joins)?;
                 Ok(Ok(true))
             }
             (None, Some(_)) => {
@@ -549,20 +594,21 @@ impl Store {
     ) -> rusqlite::Result<Result<bool, RejectReason>> {
         let m = model.name.as_str();
         // The common case in one statement: a waiting prediction within label_wait.
-        let waiting: Option<(i64, String)> = tx
+        let waiting: Option<(i64, String, Option<String>)> = tx
             .prepare_cached(
                 "UPDATE pred SET state = ?1, label = ?2
                  WHERE model = ?3 AND id = ?4 AND state = ?5 AND ?6 - t_pred <= ?7
-                 RETURNING t_pred, value",
+                 RETURNING t_pred, value, features",
             )?
             .query_row(params![LABELLED, rec.value, m, rec.id, AWAITING, rec.time_ms, model.label_wait_ms], |r| {
-                Ok((r.get(0)?, r.get(1)?))
+                Ok((r.get(0)?, r.get(1)?, r.get(2)?))
             })
             .optional()?;
-        if let Some((t_pred, value)) = waiting {
+        if let Some((t_pred, value, features)) = waiting {
             // Both cells were validated when their rows arrived, so the loss exists.
             let l = loss_of(&model.loss, &value, &rec.value).unwrap_or(model.loss.max());
-            Self::insert_sample(tx, m, &rec.id, t_pred, rec.time_ms, l, joins)?;
+            let s = NewSample { id: &rec.id, t_pred, t_label: rec.time_ms, loss: l, features: features.as_deref() };
+            Self::insert_sample(tx, m, s, joins)?;
             return Ok(Ok(true));
         }
         let same = |old: &str| {
@@ -657,6 +703,36 @@ impl Store {
                 for r in rows {
                     out.push(r?);
                 }
+            }
+        }
+        Ok(out)
+    }
+
+    /// The losses of one window with their slice features (parsed from the stored JSON; rows
+    /// stored without features — before slices were configured — are left out), in arrival
+    /// order.
+    pub fn window_rows(&self, model: &str, kind: WindowKind) -> Result<Vec<(f64, Vec<String>)>, StoreError> {
+        let sql = match kind {
+            WindowKind::Last(_) => {
+                "SELECT loss, features FROM (SELECT seq, loss, features FROM sample WHERE model = ?1
+                 ORDER BY t_pred DESC, seq DESC LIMIT ?2) ORDER BY seq"
+            }
+            WindowKind::SpanMs(_) => {
+                "SELECT loss, features FROM sample WHERE model = ?1
+                 AND t_pred >= (SELECT MAX(t_pred) FROM sample WHERE model = ?1) - ?2 ORDER BY seq"
+            }
+        };
+        let arg = match kind {
+            WindowKind::Last(n) => n.min(i64::MAX as u64) as i64,
+            WindowKind::SpanMs(ms) => ms,
+        };
+        let mut st = self.conn.prepare_cached(sql)?;
+        let rows = st.query_map(params![model, arg], |r| Ok((r.get::<_, f64>(0)?, r.get::<_, Option<String>>(1)?)))?;
+        let mut out = Vec::new();
+        for row in rows {
+            let (loss, features) = row?;
+            if let Some(f) = features.and_then(|f| serde_json::from_str::<Vec<String>>(&f).ok()) {
+                out.push((loss, f));
             }
         }
         Ok(out)

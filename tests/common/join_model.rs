@@ -156,6 +156,7 @@ pub fn model_config() -> ModelConfig {
         window_guarantee: riskbound::config::WindowGuarantee::PerWindow,
         sla: None,
         alerts: Default::default(),
+        slices: None,
     }
 }
 
@@ -174,6 +175,7 @@ pub fn store_outcome(store: &mut Store, cfg: &ModelConfig, file_no: usize, ops: 
                 id: format!("i{}", op.id),
                 time_ms: op.time_ms,
                 value: op.value.into(),
+                features: Vec::new(),
             });
             i += 1;
         }
