@@ -179,6 +179,23 @@ fn sla_rules(out: &mut String, m: &ModelConfig) {
             ),
         });
     }
+    if let Some(sl) = &m.slices {
+        write_rule(out, &Rule {
+            alert: "RiskboundSliceViolated",
+            labels: vec![("model", name.clone())],
+            expr: format!("riskbound_slice_violations{{model=\"{name}\"}} > 0"),
+            for_: Some("0s"),
+            severity: "ticket",
+            summary: format!("{name}/{{{{ $labels.window }}}}: {{{{ $value }}}} slice(s) certainly above {}", sla.max_risk),
+            description: format!(
+                "A slice of the window (searched over {} categorical and {} numeric features, depth {}, or registered) has a certified lower bound above max_risk {}; riskbound_slice_info names it. The certificates survive the search (split-confirm or uniform), but each look is one look: a ticket.",
+                sl.categorical.len(),
+                sl.numeric.len(),
+                sl.depth,
+                sla.max_risk
+            ),
+        });
+    }
     write_rule(out, &Rule {
         alert: "RiskboundLabelCoverageLow",
         labels: vec![("model", name.clone())],
