@@ -159,17 +159,42 @@ impl Scanner {
                 &all
             }
         };
+        // Each categorical feature coded once (no allocation per row); a conjunction's code is
+        // composed from its parts' codes.
+        let single: Vec<(Vec<u32>, Vec<String>)> = t
+            .categorical
+            .iter()
+            .map(|(_, values)| {
+                let mut index: HashMap<&str, u32> = HashMap::new();
+                let mut names = Vec::new();
+                let codes = rows
+                    .iter()
+                    .map(|&r| {
+                        let v = values[r as usize].as_str();
+                        *index.entry(v).or_insert_with(|| {
+                            names.push(v.to_string());
+                            names.len() as u32 - 1
+                        })
+                    })
+                    .collect();
+                (codes, names)
+            })
+            .collect();
         let mut cats = Vec::new();
         for combo in combos(t.categorical.len(), depth.max(1)) {
-            let mut index: HashMap<Vec<&str>, u32> = HashMap::new();
-            let mut labels = Vec::new();
+            let mut index: HashMap<u64, u32> = HashMap::new();
+            let mut labels: Vec<Vec<(String, String)>> = Vec::new();
             let mut codes = Vec::with_capacity(rows.len());
-            for &r in rows {
-                let key: Vec<&str> = combo.iter().map(|&c| t.categorical[c].1[r as usize].as_str()).collect();
+            for p in 0..rows.len() {
+                let key =
+                    combo.iter().fold(0u64, |acc, &c| acc * (single[c].1.len() as u64 + 1) + u64::from(single[c].0[p]));
                 let next = index.len() as u32;
-                let code = *index.entry(key.clone()).or_insert_with(|| {
+                let code = *index.entry(key).or_insert_with(|| {
                     labels.push(
-                        combo.iter().zip(&key).map(|(&c, v)| (t.categorical[c].0.clone(), v.to_string())).collect(),
+                        combo
+                            .iter()
+                            .map(|&c| (t.categorical[c].0.clone(), single[c].1[single[c].0[p] as usize].clone()))
+                            .collect(),
                     );
                     next
                 });
@@ -179,22 +204,23 @@ impl Scanner {
         }
         let mut nums = Vec::new();
         for (name, values) in &t.numeric {
-            let mut order: Vec<u32> = (0..rows.len() as u32).collect();
-            order.sort_by(|&a, &b| values[rows[a as usize] as usize].total_cmp(&values[rows[b as usize] as usize]));
+            let mut keyed: Vec<(f64, u32)> =
+                (0..rows.len() as u32).map(|p| (values[rows[p as usize] as usize], p)).collect();
+            keyed.sort_unstable_by(|a, b| a.0.total_cmp(&b.0));
             let mut ends = Vec::new();
-            let mut uniq = Vec::new();
-            for (p, &i) in order.iter().enumerate() {
-                let v = values[rows[i as usize] as usize];
+            let mut uniq: Vec<f64> = Vec::new();
+            for (pos, &(v, _)) in keyed.iter().enumerate() {
                 if uniq.last() != Some(&v) {
                     if !uniq.is_empty() {
-                        ends.push(p as u32);
+                        ends.push(pos as u32);
                     }
                     uniq.push(v);
                 }
             }
             if !uniq.is_empty() {
-                ends.push(order.len() as u32);
+                ends.push(keyed.len() as u32);
             }
+            let order = keyed.into_iter().map(|(_, p)| p).collect();
             nums.push(NumIndex { name: name.clone(), order, ends, values: uniq });
         }
         Scanner { n: rows.len(), cats, nums }
@@ -382,6 +408,9 @@ pub struct Uniform {
 /// numeric feature's excess is laid out once in its sorted order, so a draw reads every
 /// feature's data sequentially and looks up only sign bits at random.
 pub fn uniform(scan: &Scanner, excess: &[f64], theta: f64, k: usize, delta: f64, rng: &mut Seeded) -> Uniform {
+    if let Some(high) = two_valued(excess, theta) {
+        return uniform_binary(scan, excess, high, theta, k, delta, rng);
+    }
     let n = scan.n() as f64;
     let c0 = 0.5 - theta; // centre of [−θ, 1 − θ]
     let sorted: Vec<Vec<f64>> =
@@ -445,6 +474,164 @@ pub fn uniform(scan: &Scanner, excess: &[f64], theta: f64, k: usize, delta: f64,
     }
     let rademacher = total / k as f64;
     let deviation = 2.0 * rademacher + ((9.0 + 4.0 / k as f64) * (1.0 / delta).ln() / (2.0 * n)).sqrt();
+    Uniform { rademacher, sign_draws: k, deviation }
+}
+
+/// `Some(1 − θ)` when every excess is −θ or 1 − θ (0-1 losses): the case the bit-sliced path
+/// handles.
+fn two_valued(excess: &[f64], theta: f64) -> Option<f64> {
+    let high = 1.0 - theta;
+    excess.iter().all(|&e| e == high || e == -theta).then_some(high)
+}
+
+/// Counters for 64 sign draws at once, bit-sliced: plane p holds bit p of each draw's count.
+struct Planes(Vec<u64>);
+
+impl Planes {
+    fn new(bits: usize) -> Planes {
+        Planes(vec![0; bits])
+    }
+    fn clear(&mut self) {
+        self.0.iter_mut().for_each(|p| *p = 0);
+    }
+    /// Adds the 64 one-bit values of `x` (a ripple of carries; two planes on average).
+    #[inline]
+    fn add(&mut self, mut x: u64) {
+        for p in self.0.iter_mut() {
+            if x == 0 {
+                break;
+            }
+            let carry = *p & x;
+            *p ^= x;
+            x = carry;
+        }
+    }
+    /// The 64 counts.
+    fn counts(&self, out: &mut [f64; 64]) {
+        out.iter_mut().for_each(|c| *c = 0.0);
+        for (p, &plane) in self.0.iter().enumerate() {
+            let mut m = plane;
+            let w = (1u64 << p) as f64;
+            while m != 0 {
+                out[m.trailing_zeros() as usize] += w;
+                m &= m - 1;
+            }
+        }
+    }
+}
+
+/// [`uniform`] for 0-1 losses: 64 sign draws at a time. Row i's signs for the 64 draws of a
+/// block are the bits of one word, so each pass over a feature's rows adds words into
+/// bit-sliced counters (one per tie group and loss value) instead of adding 64 signed numbers;
+/// the group sums of every draw then follow from the counts:
+/// Σ_{i∈g} e_i s_i = (1 − θ)(2 c₁ − n₁) − θ (2 c₀ − n₀), c the rows of each loss value with a
+/// positive sign, n all of them.
+fn uniform_binary(
+    scan: &Scanner,
+    excess: &[f64],
+    high: f64,
+    theta: f64,
+    k: usize,
+    delta: f64,
+    rng: &mut Seeded,
+) -> Uniform {
+    let n = scan.n();
+    let nf = n as f64;
+    let c0 = 0.5 - theta;
+    let is_one: Vec<bool> = excess.iter().map(|&e| e == high).collect();
+    let planes = (usize::BITS - n.leading_zeros()) as usize + 1;
+    let mut words = vec![0u64; n];
+    let (mut ones, mut zeros) = (Planes::new(planes), Planes::new(planes));
+    let (mut c1, mut c0s) = ([0.0; 64], [0.0; 64]);
+    let mut total = 0.0;
+    let mut done = 0;
+    while done < k {
+        let take = (k - done).min(64);
+        for w in words.iter_mut() {
+            *w = rng.next_u64();
+        }
+        let mut best = [0.0_f64; 64];
+        // Σ_i s_i per draw: 2·(positive signs) − n.
+        ones.clear();
+        for &w in &words {
+            ones.add(w);
+        }
+        let mut positives = [0.0; 64];
+        ones.counts(&mut positives);
+        let group_sums = |ones: &Planes,
+                          zeros: &Planes,
+                          n1: f64,
+                          n0: f64,
+                          c1: &mut [f64; 64],
+                          c0s: &mut [f64; 64],
+                          out: &mut [f64; 64]| {
+            ones.counts(c1);
+            zeros.counts(c0s);
+            for j in 0..64 {
+                out[j] = high * (2.0 * c1[j] - n1) - theta * (2.0 * c0s[j] - n0);
+            }
+        };
+        let mut g = [0.0; 64];
+        for c in &scan.cats {
+            // One pass over the rows, each word into its category's counters.
+            let m = c.labels.len();
+            let mut by_code: Vec<(Planes, Planes, f64, f64)> =
+                (0..m).map(|_| (Planes::new(planes), Planes::new(planes), 0.0, 0.0)).collect();
+            for (i, &code) in c.codes.iter().enumerate() {
+                let slot = &mut by_code[code as usize];
+                if is_one[i] {
+                    slot.0.add(words[i]);
+                    slot.2 += 1.0;
+                } else {
+                    slot.1.add(words[i]);
+                    slot.3 += 1.0;
+                }
+            }
+            for (o, z, n1, n0) in &by_code {
+                group_sums(o, z, *n1, *n0, &mut c1, &mut c0s, &mut g);
+                for j in 0..64 {
+                    best[j] = best[j].max(g[j]);
+                }
+            }
+        }
+        for f in &scan.nums {
+            let (mut prefix, mut min_p, mut max_p, mut run, mut kad) =
+                ([0.0_f64; 64], [0.0_f64; 64], [0.0_f64; 64], [0.0_f64; 64], [0.0_f64; 64]);
+            let mut start = 0usize;
+            for &end in &f.ends {
+                ones.clear();
+                zeros.clear();
+                let (mut n1, mut n0) = (0.0, 0.0);
+                for &i in &f.order[start..end as usize] {
+                    if is_one[i as usize] {
+                        ones.add(words[i as usize]);
+                        n1 += 1.0;
+                    } else {
+                        zeros.add(words[i as usize]);
+                        n0 += 1.0;
+                    }
+                }
+                start = end as usize;
+                group_sums(&ones, &zeros, n1, n0, &mut c1, &mut c0s, &mut g);
+                for j in 0..64 {
+                    prefix[j] += g[j];
+                    max_p[j] = max_p[j].max(prefix[j]);
+                    min_p[j] = min_p[j].min(prefix[j]);
+                    run[j] = (run[j] + g[j]).max(0.0);
+                    kad[j] = kad[j].max(run[j]);
+                }
+            }
+            for j in 0..64 {
+                best[j] = best[j].max(max_p[j]).max(prefix[j] - min_p[j]).max(kad[j]);
+            }
+        }
+        for j in 0..take {
+            total += best[j] / nf - c0 * (2.0 * positives[j] - nf) / nf;
+        }
+        done += take;
+    }
+    let rademacher = total / k as f64;
+    let deviation = 2.0 * rademacher + ((9.0 + 4.0 / k as f64) * (1.0 / delta).ln() / (2.0 * nf)).sqrt();
     Uniform { rademacher, sign_draws: k, deviation }
 }
 

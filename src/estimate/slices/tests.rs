@@ -204,3 +204,31 @@ fn threshold_class_supremum_agrees_with_brute_force() {
         assert!((rec.empirical_risk - min_err / n as f64).abs() < 1e-12);
     }
 }
+
+#[test]
+fn the_bit_sliced_path_equals_the_plain_computation_for_zero_one_losses() {
+    // 0-1 losses take the 64-draws-at-a-time path; 70 draws make one full and one partial block.
+    let mut t = table(4, 500);
+    for l in t.losses.iter_mut() {
+        *l = f64::from(*l >= 0.5);
+    }
+    let theta = 0.15;
+    let scan = Scanner::new(&t, None, 2);
+    let excess: Vec<f64> = t.losses.iter().map(|l| l - theta).collect();
+    let k = 70;
+    let got = uniform(&scan, &excess, theta, k, 0.05, &mut Seeded::new(5));
+    let mut rng = Seeded::new(5);
+    let n = excess.len();
+    let mut total = 0.0;
+    let mut done = 0;
+    while done < k {
+        let words: Vec<u64> = (0..n).map(|_| rng.next_u64()).collect();
+        for j in 0..(k - done).min(64) {
+            let s: Vec<f64> = words.iter().map(|w| if w >> j & 1 == 1 { 1.0 } else { -1.0 }).collect();
+            let w: Vec<f64> = s.iter().zip(&excess).map(|(a, b)| a * b).collect();
+            total += scan.sup(&w, &mut Vec::new()) / n as f64 - (0.5 - theta) * s.iter().sum::<f64>() / n as f64;
+        }
+        done += 64;
+    }
+    assert!((got.rademacher - total / k as f64).abs() < 1e-12, "{} vs {}", got.rademacher, total / k as f64);
+}
