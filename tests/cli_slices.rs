@@ -36,7 +36,7 @@ fn planted(dir: &TempDir) -> String {
 fn finds_and_certifies_a_planted_conjunction() {
     let dir = TempDir::new("slices-cli");
     let f = planted(&dir);
-    let out = riskbound(&[
+    let args = [
         "slices",
         &f,
         "--prediction-column",
@@ -58,7 +58,8 @@ fn finds_and_certifies_a_planted_conjunction() {
         "--seed",
         "7",
         "--json",
-    ]);
+    ];
+    let out = riskbound(&args);
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let doc: Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(doc["n"], 4000);
@@ -94,29 +95,7 @@ fn finds_and_certifies_a_planted_conjunction() {
         }
     }
     // The same seed gives the same document.
-    let again = riskbound(&[
-        "slices",
-        &f,
-        "--prediction-column",
-        "p",
-        "--label-column",
-        "y",
-        "--loss",
-        "zero-one",
-        "--categorical",
-        "region,carrier",
-        "--numeric",
-        "weight",
-        "--depth",
-        "2",
-        "--sla-max-risk",
-        "0.15",
-        "--top",
-        "5",
-        "--seed",
-        "7",
-        "--json",
-    ]);
+    let again = riskbound(&args);
     assert_eq!(out.stdout, again.stdout);
 }
 
@@ -173,13 +152,7 @@ fn bad_input_is_located() {
             "--depth",
         ),
     ] {
-        let out = riskbound(&args);
-        assert_eq!(out.status.code(), Some(2), "{args:?}");
-        assert!(
-            String::from_utf8_lossy(&out.stderr).contains(needle),
-            "{args:?}: {}",
-            String::from_utf8_lossy(&out.stderr)
-        );
+        common::fails_with(&args, needle);
     }
 }
 
@@ -307,20 +280,21 @@ fn registered_slices_get_fixed_predictor_bounds_at_delta_over_m() {
     assert!((doc["registered"][0]["delta"].as_f64().unwrap() - (1.0 - 0.95) / 2.0).abs() < 1e-15);
     assert_eq!(doc["registered"][1]["kind"], "interval");
     assert_eq!(doc["registered"][1]["n"], 20, "10 < w <= 20 holds w = 11..20 of each region");
-    let out = riskbound(&[
-        "slices",
-        f.to_str().unwrap(),
-        "--loss-column",
-        "loss",
-        "--loss-max",
-        "1",
-        "--categorical",
-        "region",
-        "--sla-max-risk",
-        "0.1",
-        "--registered",
-        "colour=red",
-    ]);
-    assert_eq!(out.status.code(), Some(2));
-    assert!(String::from_utf8_lossy(&out.stderr).contains("\"colour\" is not a --categorical feature"));
+    common::fails_with(
+        &[
+            "slices",
+            f.to_str().unwrap(),
+            "--loss-column",
+            "loss",
+            "--loss-max",
+            "1",
+            "--categorical",
+            "region",
+            "--sla-max-risk",
+            "0.1",
+            "--registered",
+            "colour=red",
+        ],
+        "\"colour\" is not a --categorical feature",
+    );
 }

@@ -140,13 +140,7 @@ fn bad_input_is_located_and_exits_2() {
         (vec!["track", f, "--loss-column", "loss", "--loss-max", "1", "--every", "0"], "--every"),
         (vec!["track", f, "--loss-column", "loss", "--loss-max", "1", "--confidence", "1"], "confidence"),
     ] {
-        let out = riskbound(&args);
-        assert_eq!(out.status.code(), Some(2), "{args:?}");
-        assert!(
-            String::from_utf8_lossy(&out.stderr).contains(needle),
-            "{args:?}: {}",
-            String::from_utf8_lossy(&out.stderr)
-        );
+        common::fails_with(&args, needle);
     }
     std::fs::write(dir.path("empty.csv"), "loss\n").unwrap();
     let out =

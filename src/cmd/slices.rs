@@ -100,37 +100,25 @@ fn read<R: Read>(plan: &Plan, src: R) -> Result<(Table, Scored), DecodeError> {
     Ok((t, scored))
 }
 
-/// Registered slices need no protection from selection: a fixed-predictor bound on the whole
-/// window, with δ split over the M of them.
+/// The registered slices' bounds (estimate/slices.rs: δ/M each), as JSON.
 fn registered(plan: &Plan, t: &Table) -> Value {
-    let m = plan.registered.len();
-    if m == 0 {
-        return Value::Array(Vec::new());
-    }
     let b = plan.input.loss.max();
-    let binary = t.losses.iter().all(|&l| l == 0.0 || l == 1.0);
-    let delta = plan.confidence.delta() / m as f64;
-    let theta = plan.sla_max_risk;
+    let delta = plan.confidence.delta() / plan.registered.len().max(1) as f64;
     let list = plan
         .registered
         .iter()
-        .map(|s| {
-            let held: Vec<f64> =
-                (0..t.losses.len()).filter(|&r| slices::contains(t, s, r)).map(|r| t.losses[r]).collect();
-            let bounds = slices::confirm(&held, binary, delta);
+        .zip(slices::registered(t, &plan.registered, plan.confidence.delta()))
+        .map(|(s, r)| {
             let mut v = slice_json(s);
             let o = v.as_object_mut().expect("an object");
             o.insert("description".into(), json!(s.describe()));
-            o.insert("n".into(), json!(held.len()));
-            o.insert(
-                "mean".into(),
-                json!(if held.is_empty() { 0.0 } else { b * held.iter().sum::<f64>() / held.len() as f64 }),
-            );
-            o.insert("lower".into(), json!(bounds.lower * b));
-            o.insert("upper".into(), json!(bounds.upper * b));
+            o.insert("n".into(), json!(r.n));
+            o.insert("mean".into(), json!(r.mean * b));
+            o.insert("lower".into(), json!(r.bounds.lower * b));
+            o.insert("upper".into(), json!(r.bounds.upper * b));
             o.insert("delta".into(), json!(delta));
-            o.insert("method".into(), json!(if binary { "clopper-pearson" } else { "betting" }));
-            o.insert("violates_sla".into(), json!(bounds.lower * b > theta));
+            o.insert("method".into(), json!(r.method));
+            o.insert("violates_sla".into(), json!(r.bounds.lower * b > plan.sla_max_risk));
             v
         })
         .collect();

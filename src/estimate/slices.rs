@@ -910,6 +910,35 @@ pub fn recalibrated(scores: &[f64], y: &[bool], k: usize, delta: f64, rng: &mut 
     }
 }
 
+/// A registered slice's bounds on the whole window (scaled losses).
+#[derive(Clone, Debug)]
+pub struct Registered {
+    pub n: u64,
+    pub mean: f64,
+    pub bounds: Bounds,
+    /// "clopper-pearson" for 0-1 losses, "betting" otherwise.
+    pub method: &'static str,
+}
+
+/// Slices fixed before the data need no protection from selection: a fixed-predictor bound
+/// on the whole window at δ/M each (Bonferroni over the M of them).
+pub fn registered(t: &Table, fixed: &[Slice], delta: f64) -> Vec<Registered> {
+    let binary = t.losses.iter().all(|&l| l == 0.0 || l == 1.0);
+    let per = delta / fixed.len().max(1) as f64;
+    fixed
+        .iter()
+        .map(|s| {
+            let held: Vec<f64> = (0..t.losses.len()).filter(|&r| contains(t, s, r)).map(|r| t.losses[r]).collect();
+            Registered {
+                n: held.len() as u64,
+                mean: if held.is_empty() { 0.0 } else { held.iter().sum::<f64>() / held.len() as f64 },
+                bounds: confirm(&held, binary, per),
+                method: if binary { "clopper-pearson" } else { "betting" },
+            }
+        })
+        .collect()
+}
+
 /// Parses a registered slice: `F=V`, `F=V&G=W` (a conjunction), `F<=T`, `F>T`, or `A<F<=B`.
 /// `categorical` and `numeric` are the feature names it may use.
 pub fn parse_slice(text: &str, categorical: &[String], numeric: &[String]) -> Result<Slice, String> {

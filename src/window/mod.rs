@@ -192,25 +192,19 @@ pub fn slice_snapshot(
         violates: s.violates_sla,
     };
     let top: Vec<SliceLine> = report.slices.iter().map(line).collect();
-    let binary = table.losses.iter().all(|&l| l == 0.0 || l == 1.0);
-    let m = sl.registered.len().max(1) as f64;
     let registered: Vec<SliceLine> = sl
         .registered
         .iter()
-        .map(|s| {
-            let held: Vec<f64> =
-                (0..table.losses.len()).filter(|&r| slices::contains(&table, s, r)).map(|r| table.losses[r]).collect();
-            let bd = slices::confirm(&held, binary, confidence.delta() / m);
-            SliceLine {
-                description: s.describe(),
-                kind: s.kind(),
-                n: held.len() as u64,
-                mean: if held.is_empty() { 0.0 } else { b * held.iter().sum::<f64>() / held.len() as f64 },
-                lower: bd.lower * b,
-                upper: bd.upper * b,
-                certified_by: if binary { "clopper-pearson" } else { "betting" },
-                violates: bd.lower > theta,
-            }
+        .zip(slices::registered(&table, &sl.registered, confidence.delta()))
+        .map(|(s, r)| SliceLine {
+            description: s.describe(),
+            kind: s.kind(),
+            n: r.n,
+            mean: r.mean * b,
+            lower: r.bounds.lower * b,
+            upper: r.bounds.upper * b,
+            certified_by: r.method,
+            violates: r.bounds.lower > theta,
         })
         .collect();
     let violations = top.iter().chain(&registered).filter(|s| s.violates).count() as u64;

@@ -74,6 +74,16 @@ pub fn fixture_cp(n: u64, k: u64, conf: f64) -> (f64, f64) {
     (c["lower"].as_f64().unwrap(), c["upper"].as_f64().unwrap())
 }
 
+/// Runs the binary with `args`, expecting exit status 2 (the user's input) and `needle` in
+/// its standard error; returns the output for further checks.
+pub fn fails_with(args: &[&str], needle: &str) -> std::process::Output {
+    let out = Command::new(bin()).args(args).output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{args:?}: {err}");
+    assert!(err.contains(needle), "{args:?}: expected {needle:?} in: {err}");
+    out
+}
+
 /// A free loopback port (bound and released; the daemon binds it right after).
 pub fn free_port() -> u16 {
     std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port()
