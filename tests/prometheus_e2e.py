@@ -4,11 +4,15 @@ rules `riskbound rules` generated; batches push a window into violation; the tes
 through Prometheus's HTTP API, that the bound series are stored and that the violation alert
 and the anytime page reach the firing state.
 
+With --alertmanager a real Alertmanager (Debian's `prometheus-alertmanager`) receives the
+alerts from Prometheus and routes them by the rules' `severity` label to two webhook receivers
+served by this script: pages to /pager, tickets to /tickets.
+
 With --secure the same run goes through TLS and basic auth: riskbound serves with a web
 config file (a self-signed certificate made here with openssl, a bcrypt-hashed password) and
 Prometheus scrapes with the right credentials.
 
-Run: python3 tests/prometheus_e2e.py [--bin target/release/riskbound] [--secure]
+Run: python3 tests/prometheus_e2e.py [--bin target/release/riskbound] [--secure] [--alertmanager]
 Only the standard library; no network beyond 127.0.0.1.
 """
 import argparse
@@ -60,6 +64,27 @@ def wait(what, timeout, f):
     raise SystemExit(f"timed out waiting for {what}; last: {last}")
 
 
+def webhook_server():
+    """A webhook receiver on 127.0.0.1: returns (list of (path, JSON body), port)."""
+    import http.server
+    import threading
+    received = []
+
+    class Hook(http.server.BaseHTTPRequestHandler):
+        def do_POST(self):
+            body = self.rfile.read(int(self.headers.get("Content-Length", 0)))
+            received.append((self.path, json.loads(body)))
+            self.send_response(200)
+            self.end_headers()
+
+        def log_message(self, *args):
+            pass
+
+    srv = http.server.ThreadingHTTPServer(("127.0.0.1", 0), Hook)
+    threading.Thread(target=srv.serve_forever, daemon=True).start()
+    return received, srv.server_address[1]
+
+
 def secure_checks(port, ca):  # noqa: C901
     """Wrong or missing credentials get 401; the probes stay open; TLS below 1.2 is refused
     by the server (its protocol_version alert), not merely unsupported by this client."""
@@ -109,6 +134,7 @@ def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--bin", default="target/release/riskbound")
     ap.add_argument("--secure", action="store_true")
+    ap.add_argument("--alertmanager", action="store_true")
     a = ap.parse_args()
     binary = os.path.abspath(a.bin)
     work = tempfile.mkdtemp(prefix="riskbound-prom-")
@@ -157,9 +183,41 @@ basic_auth_users:
                                check=True, capture_output=True).stdout
         with open(os.path.join(work, "rules.yaml"), "wb") as f:
             f.write(rules)
+        alerting = ""
+        received = None
+        if a.alertmanager:
+            received, hook_port = webhook_server()
+            am_port = free_port()
+            with open(os.path.join(work, "alertmanager.yml"), "w") as f:
+                f.write(f"""route:
+  receiver: tickets
+  group_by: [alertname, model]
+  group_wait: 1s
+  group_interval: 1s
+  repeat_interval: 1h
+  routes:
+    - matchers: ['severity="page"']
+      receiver: pager
+receivers:
+  - name: pager
+    webhook_configs: [{{ url: "http://127.0.0.1:{hook_port}/pager" }}]
+  - name: tickets
+    webhook_configs: [{{ url: "http://127.0.0.1:{hook_port}/tickets" }}]
+""")
+            # --cluster.listen-address= turns gossip off: nothing listens beyond 127.0.0.1.
+            am = subprocess.Popen(["prometheus-alertmanager", "--config.file", os.path.join(work, "alertmanager.yml"),
+                                   "--storage.path", os.path.join(work, "am"),
+                                   "--web.listen-address", f"127.0.0.1:{am_port}", "--cluster.listen-address="],
+                                  stdout=subprocess.DEVNULL, stderr=open(os.path.join(work, "alertmanager.log"), "w"))
+            procs.append(am)
+            wait("Alertmanager ready", 60, lambda: urllib.request.urlopen(f"http://127.0.0.1:{am_port}/-/ready", timeout=2).status == 200)
+            alerting = f"""alerting:
+  alertmanagers:
+    - static_configs: [{{ targets: ["127.0.0.1:{am_port}"] }}]
+"""
         with open(os.path.join(work, "prometheus.yml"), "w") as f:
             f.write(f"""global: {{ scrape_interval: 1s, evaluation_interval: 1s }}
-rule_files: [{work}/rules.yaml]
+{alerting}rule_files: [{work}/rules.yaml]
 scrape_configs:
   - job_name: riskbound
     static_configs: [{{ targets: ["127.0.0.1:{rb_port}"] }}]
@@ -208,6 +266,18 @@ scrape_configs:
         p = wait("RiskboundRiskExceededSinceReset firing", 60, firing("RiskboundRiskExceededSinceReset"))
         assert p[0]["labels"]["severity"] == "page", p
         print("firing:", p[0]["labels"]["alertname"], p[0]["annotations"]["summary"])
+        if received is not None:
+            def routed():
+                got = {(path, al["labels"]["alertname"]) for path, body in list(received) for al in body["alerts"]
+                       if al["status"] == "firing"}
+                want = {("/tickets", "RiskboundWindowSlaViolated"), ("/pager", "RiskboundRiskExceededSinceReset")}
+                return want <= got and got
+            got = wait("Alertmanager delivering the page and the ticket to their receivers", 60, routed)
+            # Routing follows the rules' severity label: pages to the pager, the rest to tickets.
+            wrong = [(path, al["labels"]["alertname"]) for path, body in list(received) for al in body["alerts"]
+                     if (path == "/pager") != (al["labels"].get("severity") == "page")]
+            assert not wrong, f"misrouted: {wrong}"
+            print("alertmanager routed:", sorted(got))
         print("prometheus end to end: ok")
     finally:
         for p in procs:
