@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # The deployment files through the real tools: promtool check config on the Prometheus
-# configuration (with rules generated from the Kubernetes config map's daemon config), and
-# systemd-analyze verify on the unit, failing on any warning. Run by .ci/run.
+# configuration (with rules generated from the Kubernetes config map's daemon config), amtool
+# check-config on the Alertmanager routing, and systemd-analyze verify on the unit, failing on
+# any warning. Run by .ci/run.
 set -euo pipefail
 bin=$(realpath "${1:-target/release/riskbound}")
 here=$(cd "$(dirname "$0")/.." && pwd)
@@ -21,6 +22,11 @@ PY
 "$bin" rules --config "$work/riskbound.yaml" > "$work/riskbound-rules.yaml"
 cp "$here/deploy/prometheus/prometheus.yml" "$work/"
 promtool check config "$work/prometheus.yml"
+amtool check-config "$here/deploy/prometheus/alertmanager.yml"
+# The routes match the severities the generated rules carry.
+for sev in page ticket info; do
+  grep -q "severity: $sev" "$work/riskbound-rules.yaml" || { echo "no rule has severity $sev"; exit 1; }
+done
 if command -v systemd-analyze > /dev/null; then
   sed "s#/usr/local/bin/riskbound#$bin#" "$here/deploy/systemd/riskbound.service" > "$work/riskbound.service"
   out=$(systemd-analyze verify "$work/riskbound.service" 2>&1) || { echo "$out"; exit 1; }
