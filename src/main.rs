@@ -449,7 +449,8 @@ fn run_daemon(a: &RunArgs) -> anyhow::Result<()> {
     init_logs(&a.log_format);
     tracing::info!(
         models = config.models.len(),
-        "riskbound {}: bounds assume i.i.d. samples within a window, bounded losses, and labels not selected by outcome",
+        "riskbound {}: bounds assume i.i.d. samples within a window, bounded losses, and labels not selected by outcome; \
+         the anytime sequences and alarms also assume the order of samples does not depend on their losses",
         env!("CARGO_PKG_VERSION")
     );
     let running = riskbound::app::start(config)?;
