@@ -174,23 +174,30 @@ fn a_retuned_threshold_gets_a_uniform_bound() {
         csv += &format!("{score},1,{},r{}\n", u8::from(y), (u() * 3.0) as u8);
     }
     std::fs::write(dir.path("t.csv"), csv).unwrap();
-    let out = riskbound(&[
-        "slices",
-        dir.path("t.csv").to_str().unwrap(),
-        "--prediction-column",
-        "p",
-        "--label-column",
-        "y",
-        "--loss",
-        "zero-one",
-        "--categorical",
-        "region",
-        "--sla-max-risk",
-        "0.5",
-        "--score-column",
-        "score",
-        "--json",
-    ]);
+    let args = |file: &str| -> Vec<String> {
+        [
+            "slices",
+            file,
+            "--prediction-column",
+            "p",
+            "--label-column",
+            "y",
+            "--loss",
+            "zero-one",
+            "--categorical",
+            "region",
+            "--sla-max-risk",
+            "0.5",
+            "--score-column",
+            "score",
+        ]
+        .map(String::from)
+        .to_vec()
+    };
+    let t_csv = dir.path("t.csv");
+    let mut good = args(t_csv.to_str().unwrap());
+    good.push("--json".into());
+    let out = riskbound(&good.iter().map(String::as_str).collect::<Vec<_>>());
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let doc: Value = serde_json::from_slice(&out.stdout).unwrap();
     let r = &doc["recalibrated_threshold"];
@@ -209,28 +216,9 @@ fn a_retuned_threshold_gets_a_uniform_bound() {
     assert!(upper > errors && (upper - errors - r["deviation"].as_f64().unwrap()).abs() < 1e-12);
     // Labels other than 0/1 are a located error.
     std::fs::write(dir.path("bad.csv"), "score,p,y,region\n0.5,1,1,a\n0.4,1,yes,a\n").unwrap();
-    let out = riskbound(&[
-        "slices",
-        dir.path("bad.csv").to_str().unwrap(),
-        "--prediction-column",
-        "p",
-        "--label-column",
-        "y",
-        "--loss",
-        "zero-one",
-        "--categorical",
-        "region",
-        "--sla-max-risk",
-        "0.5",
-        "--score-column",
-        "score",
-    ]);
-    assert_eq!(out.status.code(), Some(2));
-    assert!(
-        String::from_utf8_lossy(&out.stderr).contains("bad.csv:3: column y"),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    let bad_csv = dir.path("bad.csv");
+    let bad = args(bad_csv.to_str().unwrap());
+    common::fails_with(&bad.iter().map(String::as_str).collect::<Vec<_>>(), "bad.csv:3: column y");
 }
 
 #[test]

@@ -58,6 +58,7 @@ fn uniform_deviation_covers_the_true_supremum() {
         misses += usize::from(sup > u.deviation);
     }
     let rate = misses as f64 / reps as f64;
+    eprintln!("uniform ε missed the true supremum in {misses} of {reps} windows");
     assert!(rate <= limit(reps), "ε missed the true supremum in {rate} of windows");
 }
 
@@ -78,6 +79,7 @@ fn no_slice_is_certified_under_the_boundary_null() {
         false_alarms += usize::from(report.slices.iter().any(|s| s.violates_sla));
     }
     let rate = false_alarms as f64 / reps as f64;
+    eprintln!("boundary null: a slice was certified in {false_alarms} of {reps} windows");
     assert!(rate <= limit(reps), "a slice was falsely certified in {rate} of windows");
 }
 
@@ -99,5 +101,6 @@ fn a_planted_bad_interval_is_found_and_certified() {
             }
         }
     }
+    eprintln!("planted interval found and certified in {found} of 10 windows");
     assert!(found >= 9, "the planted interval was found and certified in {found} of 10 windows");
 }

@@ -195,7 +195,8 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
     println!("riskbound demo: a fictional parcel-delivery model, replayed at {} ms per simulated hour", a.ms_per_hour);
     println!("batch files and config: {}", root.display());
     println!("scrape: {url}");
-    println!("bounds assume i.i.d. samples within a window, a bounded loss, and labels not selected by outcome\n");
+    println!("bounds assume i.i.d. samples within a window, a bounded loss, and labels not selected by outcome;");
+    println!("the anytime sequences and alarms also assume the order of samples does not depend on their losses\n");
 
     let mut rng = Rng(20_261_201);
     let mut pending: Vec<Pending> = Vec::new();

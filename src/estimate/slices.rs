@@ -230,7 +230,8 @@ impl Scanner {
         self.n
     }
 
-    /// sup over the whole class of Σ_{i∈S} w_i (≥ 0: the empty slice is in the class). `w` is
+    /// sup over the whole class of Σ_{i∈S} w_i (≥ 0: the empty slice is in the class), the
+    /// plain definition: the fast paths of [`uniform`] are tested against it. `w` is
     /// indexed by position in the scanner's rows. `scratch` is reused between calls.
     pub fn sup(&self, w: &[f64], scratch: &mut Vec<f64>) -> f64 {
         let mut best = 0.0_f64;
@@ -648,35 +649,35 @@ pub struct Localized {
     pub iterations: u32,
 }
 
-pub fn localized(t: &Table, scan_rows: &[u32], theta: f64, delta: f64, rng: &mut Seeded) -> Localized {
-    let n = scan_rows.len() as f64;
-    let excess: Vec<f64> = scan_rows.iter().map(|&r| t.losses[r as usize] - theta).collect();
-    let s: Vec<f64> = (0..scan_rows.len()).map(|_| rng.sign()).collect();
-    // Members of the (sub)class as (Σ s_i g_i, Σ g_i²) over the rows they hold.
+pub fn localized(scan: &Scanner, excess: &[f64], delta: f64, rng: &mut Seeded) -> Localized {
+    let n = scan.n() as f64;
+    let s: Vec<f64> = (0..scan.n()).map(|_| rng.sign()).collect();
+    // Members of the (sub)class as (Σ s_i g_i, Σ g_i²) over the rows they hold, from the
+    // scanner's codes and sorted tie groups (the single-feature categories only).
     let mut members: Vec<(f64, f64)> = Vec::new();
-    for (_, values) in &t.categorical {
-        let mut groups: HashMap<&str, (f64, f64)> = HashMap::new();
-        for (p, &r) in scan_rows.iter().enumerate() {
-            let e = groups.entry(values[r as usize].as_str()).or_default();
+    for c in scan.cats.iter().filter(|c| c.labels.first().is_some_and(|l| l.len() == 1)) {
+        let mut groups = vec![(0.0, 0.0); c.labels.len()];
+        for (p, &code) in c.codes.iter().enumerate() {
+            let e = &mut groups[code as usize];
             e.0 += s[p] * excess[p];
             e.1 += excess[p] * excess[p];
         }
-        members.extend(groups.into_values());
+        members.extend(groups);
     }
-    for (_, values) in &t.numeric {
-        let mut order: Vec<usize> = (0..scan_rows.len()).collect();
-        order.sort_by(|&a, &b| values[scan_rows[a] as usize].total_cmp(&values[scan_rows[b] as usize]));
-        let (mut a, mut q) = (0.0, 0.0);
-        let (ta, tq): (f64, f64) =
-            order.iter().fold((0.0, 0.0), |(x, y), &p| (x + s[p] * excess[p], y + excess[p] * excess[p]));
-        for (j, &p) in order.iter().enumerate() {
-            a += s[p] * excess[p];
-            q += excess[p] * excess[p];
-            let tie = j + 1 < order.len() && values[scan_rows[order[j + 1]] as usize] == values[scan_rows[p] as usize];
-            if !tie {
-                members.push((a, q));
-                members.push((ta - a, tq - q));
+    for f in &scan.nums {
+        let (ta, tq): (f64, f64) = f
+            .order
+            .iter()
+            .fold((0.0, 0.0), |(x, y), &p| (x + s[p as usize] * excess[p as usize], y + excess[p as usize].powi(2)));
+        let (mut a, mut q, mut start) = (0.0, 0.0, 0usize);
+        for &end in &f.ends {
+            for &p in &f.order[start..end as usize] {
+                a += s[p as usize] * excess[p as usize];
+                q += excess[p as usize] * excess[p as usize];
             }
+            start = end as usize;
+            members.push((a, q));
+            members.push((ta - a, tq - q));
         }
     }
     let phi = |r: f64| -> f64 {
@@ -784,8 +785,7 @@ pub fn analyze(t: &Table, plan: &Plan) -> Report {
     let scan = Scanner::new(t, None, plan.depth);
     let excess: Vec<f64> = t.losses.iter().map(|&l| l - plan.theta).collect();
     let uniform = uniform(&scan, &excess, plan.theta, plan.sign_draws.max(1), uniform_delta, &mut rng);
-    let all: Vec<u32> = (0..n as u32).collect();
-    let localized = localized(t, &all, plan.theta, plan.delta, &mut rng);
+    let localized = localized(&scan, &excess, plan.delta, &mut rng);
 
     // Report what either route found: the split's discoveries and the full window's worst.
     let mut slices: Vec<(Slice, bool)> = found.into_iter().map(|s| (s, true)).collect();

@@ -281,7 +281,9 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
     let label_coverage = (decided > 0).then(|| counters.joined as f64 / decided as f64);
     let mut windows = Vec::with_capacity(model.windows.len());
     for w in &model.windows {
-        let losses = store.window_losses(&model.name, w.kind)?;
+        // One read of the window serves the bounds and, when configured, the slice search.
+        let rows = store.window_rows(&model.name, w.kind)?;
+        let losses: Vec<f64> = rows.iter().map(|(l, _)| *l).collect();
         let (summary, mut bounds) = window_bounds(&losses, model, window_confidence);
         if spent_out {
             bounds.clear();
@@ -293,7 +295,12 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
             None => (SlaState::Inconclusive, SlaReason::TooFewSamples),
         });
         let slices = match &model.slices {
-            Some(_) => slice_snapshot(&store.window_rows(&model.name, w.kind)?, model, window_confidence),
+            Some(_) => {
+                // Rows stored before slices were configured carry no features and sit out.
+                let featured: Vec<(f64, Vec<String>)> =
+                    rows.into_iter().filter_map(|(l, f)| f.map(|f| (l, f))).collect();
+                slice_snapshot(&featured, model, window_confidence)
+            }
             None => None,
         };
         // A certified bad slice decides the window only when asked, and never overrides thin

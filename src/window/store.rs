@@ -88,6 +88,9 @@ pub struct TrackerState {
 /// A stored tracker row: (state JSON, or NULL after a reset; reset_ms; resets).
 type TrackerRow = (Option<String>, Option<i64>, u64);
 
+/// A window's sample as read back: its loss and, if recorded, its slice features.
+pub type WindowRow = (f64, Option<Vec<String>>);
+
 /// A joined sample about to be stored.
 struct NewSample<'a> {
     id: &'a str,
@@ -683,57 +686,30 @@ impl Store {
 
     /// The losses of one window, in arrival order (the order betting needs).
     pub fn window_losses(&self, model: &str, kind: WindowKind) -> Result<Vec<f64>, StoreError> {
-        let mut out = Vec::new();
-        match kind {
-            WindowKind::Last(n) => {
-                let mut st = self.conn.prepare_cached(
-                    "SELECT loss FROM (SELECT seq, loss FROM sample WHERE model = ?1 ORDER BY t_pred DESC, seq DESC LIMIT ?2) ORDER BY seq",
-                )?;
-                let rows = st.query_map(params![model, n as i64], |r| r.get::<_, f64>(0))?;
-                for r in rows {
-                    out.push(r?);
-                }
-            }
-            WindowKind::SpanMs(ms) => {
-                let mut st = self.conn.prepare_cached(
-                    "SELECT loss FROM sample WHERE model = ?1
-                     AND t_pred >= (SELECT MAX(t_pred) FROM sample WHERE model = ?1) - ?2 ORDER BY seq",
-                )?;
-                let rows = st.query_map(params![model, ms], |r| r.get::<_, f64>(0))?;
-                for r in rows {
-                    out.push(r?);
-                }
-            }
-        }
-        Ok(out)
+        Ok(self.window_rows(model, kind)?.into_iter().map(|(l, _)| l).collect())
     }
 
-    /// The losses of one window with their slice features (parsed from the stored JSON; rows
-    /// stored without features — before slices were configured — are left out), in arrival
-    /// order.
-    pub fn window_rows(&self, model: &str, kind: WindowKind) -> Result<Vec<(f64, Vec<String>)>, StoreError> {
-        let sql = match kind {
-            WindowKind::Last(_) => {
+    /// The losses of one window with their slice features (the stored JSON parsed; `None` for
+    /// rows stored without features, before slices were configured), in arrival order.
+    pub fn window_rows(&self, model: &str, kind: WindowKind) -> Result<Vec<WindowRow>, StoreError> {
+        let (sql, arg) = match kind {
+            WindowKind::Last(n) => (
                 "SELECT loss, features FROM (SELECT seq, loss, features FROM sample WHERE model = ?1
-                 ORDER BY t_pred DESC, seq DESC LIMIT ?2) ORDER BY seq"
-            }
-            WindowKind::SpanMs(_) => {
+                 ORDER BY t_pred DESC, seq DESC LIMIT ?2) ORDER BY seq",
+                n.min(i64::MAX as u64) as i64,
+            ),
+            WindowKind::SpanMs(ms) => (
                 "SELECT loss, features FROM sample WHERE model = ?1
-                 AND t_pred >= (SELECT MAX(t_pred) FROM sample WHERE model = ?1) - ?2 ORDER BY seq"
-            }
-        };
-        let arg = match kind {
-            WindowKind::Last(n) => n.min(i64::MAX as u64) as i64,
-            WindowKind::SpanMs(ms) => ms,
+                 AND t_pred >= (SELECT MAX(t_pred) FROM sample WHERE model = ?1) - ?2 ORDER BY seq",
+                ms,
+            ),
         };
         let mut st = self.conn.prepare_cached(sql)?;
         let rows = st.query_map(params![model, arg], |r| Ok((r.get::<_, f64>(0)?, r.get::<_, Option<String>>(1)?)))?;
         let mut out = Vec::new();
         for row in rows {
             let (loss, features) = row?;
-            if let Some(f) = features.and_then(|f| serde_json::from_str::<Vec<String>>(&f).ok()) {
-                out.push((loss, f));
-            }
+            out.push((loss, features.and_then(|f| serde_json::from_str::<Vec<String>>(&f).ok())));
         }
         Ok(out)
     }
