@@ -101,11 +101,19 @@ struct NewSample<'a> {
     features: Option<&'a str>,
 }
 
-/// The samples one file completed, in the order they were joined.
+/// What one file did to the join state, gathered so that each counter is written once per
+/// file rather than once per row.
 #[derive(Default)]
 struct Joins {
+    /// The samples it completed, in the order they were joined.
     delays: Vec<f64>,
     losses: Vec<f64>,
+    /// Change in the number of predictions waiting for a label.
+    awaiting: i64,
+    /// Predictions that arrived already older than the expiry cutoff: expired on arrival.
+    expired: u64,
+    /// The expiry cutoff before this file: every prediction older than it is decided.
+    expired_to: i64,
 }
 
 /// The counters of one model, as exported.
@@ -153,20 +161,20 @@ CREATE TABLE IF NOT EXISTS pred (
     model TEXT NOT NULL, id TEXT NOT NULL, t_pred INTEGER NOT NULL, value TEXT NOT NULL,
     state INTEGER NOT NULL, label TEXT,
     PRIMARY KEY (model, id)) WITHOUT ROWID;
-CREATE INDEX IF NOT EXISTS pred_waiting ON pred (model, state, t_pred);
+CREATE INDEX IF NOT EXISTS pred_time ON pred (model, t_pred);
 CREATE TABLE IF NOT EXISTS orphan (
     model TEXT NOT NULL, id TEXT NOT NULL, t_label INTEGER NOT NULL, value TEXT NOT NULL,
     PRIMARY KEY (model, id)) WITHOUT ROWID;
 CREATE INDEX IF NOT EXISTS orphan_time ON orphan (model, t_label);
 CREATE TABLE IF NOT EXISTS sample (
-    seq INTEGER PRIMARY KEY AUTOINCREMENT, model TEXT NOT NULL, id TEXT NOT NULL,
+    seq INTEGER PRIMARY KEY, model TEXT NOT NULL, id TEXT NOT NULL,
     t_pred INTEGER NOT NULL, t_label INTEGER NOT NULL, loss REAL NOT NULL);
 CREATE INDEX IF NOT EXISTS sample_time ON sample (model, t_pred);
 CREATE TABLE IF NOT EXISTS counter (
     model TEXT NOT NULL, name TEXT NOT NULL, value REAL NOT NULL,
     PRIMARY KEY (model, name));
 CREATE TABLE IF NOT EXISTS model_meta (
-    model TEXT PRIMARY KEY, watermark INTEGER, last_commit_ms INTEGER);
+    model TEXT PRIMARY KEY, watermark INTEGER, last_commit_ms INTEGER, expired_to INTEGER);
 CREATE TABLE IF NOT EXISTS tracker (
     model TEXT PRIMARY KEY, state TEXT, reset_ms INTEGER, resets INTEGER NOT NULL DEFAULT 0);
 ";
@@ -206,17 +214,38 @@ fn loss_of(spec: &LossSpec, prediction: &str, label: &str) -> Result<f64, Reject
     }
 }
 
-/// Columns added after the first schema: state written by an older build gains them (NULL:
-/// no slice features recorded for those rows).
-fn migrate(conn: &Connection) -> rusqlite::Result<()> {
-    for table in ["pred", "sample"] {
+/// The layout version this build writes (`PRAGMA user_version`).
+const LAYOUT: i64 = 2;
+
+/// Brings state written by an older build up to this layout, once, in one transaction.
+/// Columns added later are NULL for old rows (no slice features recorded, no expiry cutoff
+/// yet: the first file's expiry then scans from the start). Layout 2 indexes predictions by
+/// time alone, so a label's state change rewrites only its own row, not an index entry too,
+/// and keeps the number of waiting predictions as a counter instead of counting the index.
+fn migrate(conn: &mut Connection) -> rusqlite::Result<()> {
+    let version: i64 = conn.query_row("PRAGMA user_version", [], |r| r.get(0))?;
+    if version >= LAYOUT {
+        return Ok(());
+    }
+    let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+    for (table, column) in
+        [("pred", "features TEXT"), ("sample", "features TEXT"), ("model_meta", "expired_to INTEGER")]
+    {
+        let name = column.split(' ').next().expect("a column has a name");
         let has: bool =
-            conn.prepare(&format!("SELECT 1 FROM pragma_table_info('{table}') WHERE name = 'features'"))?.exists([])?;
+            tx.prepare(&format!("SELECT 1 FROM pragma_table_info('{table}') WHERE name = '{name}'"))?.exists([])?;
         if !has {
-            conn.execute_batch(&format!("ALTER TABLE {table} ADD COLUMN features TEXT"))?;
+            tx.execute_batch(&format!("ALTER TABLE {table} ADD COLUMN {column}"))?;
         }
     }
-    Ok(())
+    tx.execute_batch("DROP INDEX IF EXISTS pred_waiting")?;
+    tx.execute(
+        "INSERT INTO counter (model, name, value) SELECT model, 'awaiting', COUNT(*) FROM pred WHERE state = ?1
+         GROUP BY model ON CONFLICT (model, name) DO UPDATE SET value = excluded.value",
+        [AWAITING],
+    )?;
+    tx.execute_batch(&format!("PRAGMA user_version = {LAYOUT}"))?;
+    tx.commit()
 }
 
 /// Numeric slice features must parse when the prediction arrives, so a bad cell is rejected
@@ -252,7 +281,7 @@ fn check_value(spec: &LossSpec, kind: Kind, value: &str) -> Result<(), RejectRea
 impl Store {
     /// Opens (creating if needed) the database in `dir`.
     pub fn open(dir: &Path) -> Result<Store, StoreError> {
-        let conn = Connection::open(dir.join("riskbound.sqlite"))?;
+        let mut conn = Connection::open(dir.join("riskbound.sqlite"))?;
         // WAL lets /metrics readers and the writer proceed together; FULL makes each commit
         // durable before the file counts as taken.
         conn.pragma_update(None, "journal_mode", "WAL")?;
@@ -262,15 +291,15 @@ impl Store {
         conn.pragma_update(None, "cache_size", -65_536)?;
         conn.pragma_update(None, "temp_store", "MEMORY")?;
         conn.execute_batch(SCHEMA)?;
-        migrate(&conn)?;
+        migrate(&mut conn)?;
         Ok(Store { conn })
     }
 
     /// A database in memory, for tests and fuzzing: the same schema and logic, no durability.
     pub fn open_in_memory() -> Result<Store, StoreError> {
-        let conn = Connection::open_in_memory()?;
+        let mut conn = Connection::open_in_memory()?;
         conn.execute_batch(SCHEMA)?;
-        migrate(&conn)?;
+        migrate(&mut conn)?;
         Ok(Store { conn })
     }
 
@@ -326,12 +355,14 @@ impl Store {
             out.already_taken = true;
             return Ok(out);
         }
-        let mut watermark: i64 = tx
-            .query_row("SELECT watermark FROM model_meta WHERE model = ?1", [m], |r| r.get::<_, Option<i64>>(0))
+        let (watermark, expired_to): (Option<i64>, Option<i64>) = tx
+            .query_row("SELECT watermark, expired_to FROM model_meta WHERE model = ?1", [m], |r| {
+                Ok((r.get(0)?, r.get(1)?))
+            })
             .optional()?
-            .flatten()
-            .unwrap_or(i64::MIN);
-        let mut joins = Joins::default();
+            .unwrap_or((None, None));
+        let mut watermark = watermark.unwrap_or(i64::MIN);
+        let mut joins = Joins { expired_to: expired_to.unwrap_or(i64::MIN), ..Joins::default() };
         // Most predictions have no early label; skip the per-row lookup when none is held.
         let mut orphans_held: bool =
             tx.query_row("SELECT EXISTS (SELECT 1 FROM orphan WHERE model = ?1)", [m], |r| r.get(0))?;
@@ -380,25 +411,40 @@ impl Store {
             }
         }
         // Expiry by event time: what waited longer than label_wait behind the newest event.
+        // Everything below the previous cutoff is decided already (predictions arriving below
+        // it are expired on arrival), so only the predictions between the two cutoffs are
+        // visited: each prediction once in its life, not the whole table per file. The cutoff
+        // never moves back, even when label_wait is raised.
+        let mut expired_to = joins.expired_to;
         if watermark > i64::MIN {
-            let cutoff = watermark.saturating_sub(model.label_wait_ms);
+            let cutoff = watermark.saturating_sub(model.label_wait_ms).max(expired_to);
             let expired = tx
-                .prepare_cached("UPDATE pred SET state = ?1 WHERE model = ?2 AND state = ?3 AND t_pred < ?4")?
-                .execute(params![EXPIRED, m, AWAITING, cutoff])?;
+                .prepare_cached(
+                    "UPDATE pred SET state = ?1 WHERE model = ?2 AND t_pred >= ?3 AND t_pred < ?4 AND state = ?5",
+                )?
+                .execute(params![EXPIRED, m, expired_to, cutoff, AWAITING])?;
             let orphaned = tx
                 .prepare_cached("DELETE FROM orphan WHERE model = ?1 AND t_label < ?2")?
                 .execute(params![m, cutoff])?;
-            bump(&tx, m, "expired", expired as f64)?;
+            joins.expired += expired as u64;
+            joins.awaiting -= expired as i64;
             bump(&tx, m, "orphaned", orphaned as f64)?;
             // Decided predictions are kept a second label_wait to catch late duplicates.
-            tx.prepare_cached("DELETE FROM pred WHERE model = ?1 AND state IN (?2, ?3) AND t_pred < ?4")?
-                .execute(params![m, LABELLED, EXPIRED, cutoff.saturating_sub(model.label_wait_ms)])?;
+            tx.prepare_cached("DELETE FROM pred WHERE model = ?1 AND t_pred < ?2 AND state IN (?3, ?4)")?
+                .execute(params![m, cutoff.saturating_sub(model.label_wait_ms), LABELLED, EXPIRED])?;
+            expired_to = cutoff;
         }
+        bump(&tx, m, "expired", joins.expired as f64)?;
+        bump(&tx, m, "awaiting", joins.awaiting as f64)?;
         let delays = &joins.delays;
+        let mut per_bucket = [0u64; DELAY_BUCKETS.len() + 1];
         for d in delays {
-            let i = DELAY_BUCKETS.iter().position(|b| d <= b).unwrap_or(DELAY_BUCKETS.len());
-            bump(&tx, m, &format!("delay_bucket_{i}"), 1.0)?;
+            per_bucket[DELAY_BUCKETS.iter().position(|b| d <= b).unwrap_or(DELAY_BUCKETS.len())] += 1;
         }
+        for (i, n) in per_bucket.iter().enumerate() {
+            bump(&tx, m, &format!("delay_bucket_{i}"), *n as f64)?;
+        }
+        bump(&tx, m, "samples_kept", delays.len() as f64)?;
         bump(&tx, m, "delay_count", delays.len() as f64)?;
         bump(&tx, m, "delay_sum_seconds", delays.iter().sum())?;
         bump(&tx, m, &format!("rows_{}", kind.as_str()), out.rows_ok as f64)?;
@@ -414,9 +460,15 @@ impl Store {
             params![m, kind.as_str(), hash, name, out.rows_ok as i64, bad as i64, now_ms, batch.size, batch.mtime_ns],
         )?;
         tx.execute(
-            "INSERT INTO model_meta (model, watermark, last_commit_ms) VALUES (?1, ?2, ?3)
-             ON CONFLICT (model) DO UPDATE SET watermark = excluded.watermark, last_commit_ms = excluded.last_commit_ms",
-            params![m, if watermark == i64::MIN { None } else { Some(watermark) }, now_ms],
+            "INSERT INTO model_meta (model, watermark, last_commit_ms, expired_to) VALUES (?1, ?2, ?3, ?4)
+             ON CONFLICT (model) DO UPDATE SET watermark = excluded.watermark, last_commit_ms = excluded.last_commit_ms,
+             expired_to = excluded.expired_to",
+            params![
+                m,
+                if watermark == i64::MIN { None } else { Some(watermark) },
+                now_ms,
+                if expired_to == i64::MIN { None } else { Some(expired_to) }
+            ],
         )?;
         Self::prune_samples(&tx, model)?;
         out.tracker_restarted = Self::advance_tracker(&tx, model, &joins.losses, now_ms)?;
@@ -432,7 +484,7 @@ impl Store {
         .execute(params![model, id, t_pred, t_label, loss, features])?;
         joins.delays.push(((t_label - t_pred).max(0) as f64) / 1000.0);
         joins.losses.push(loss);
-        bump(tx, model, "samples_kept", 1.0)
+        Ok(())
     }
 
     /// The stored tracker row: (state JSON or NULL after a reset, reset_ms, resets).
@@ -552,8 +604,12 @@ impl Store {
             }
             _ => None,
         };
+        // Older than the expiry cutoff already: it could only wait to be expired by the next
+        // file's expiry, which no longer looks below the cutoff, so it is expired now.
+        let late = rec.time_ms < joins.expired_to;
         let (state, label) = match joined {
             Some((_, label, _)) => (LABELLED, Some(label)),
+            None if late => (EXPIRED, None),
             None => (AWAITING, None),
         };
         let features = features_json(rec);
@@ -570,6 +626,11 @@ impl Store {
                     .execute(params![m, rec.id, t_label, label])?;
             }
             return Ok(Err(RejectReason::DuplicatePrediction));
+        }
+        if state == EXPIRED {
+            joins.expired += 1;
+        } else if state == AWAITING {
+            joins.awaiting += 1;
         }
         match (joined, &orphan) {
             (Some((t_label, _, l)), _) => {
@@ -608,6 +669,7 @@ impl Store {
             })
             .optional()?;
         if let Some((t_pred, value, features)) = waiting {
+            joins.awaiting -= 1;
             // Both cells were validated when their rows arrived, so the loss exists.
             let l = loss_of(&model.loss, &value, &rec.value).unwrap_or(model.loss.max());
             let s = NewSample { id: &rec.id, t_pred, t_label: rec.time_ms, loss: l, features: features.as_deref() };
@@ -677,9 +739,14 @@ impl Store {
 
     /// Samples currently kept for a model (a counter, because COUNT(*) scans the table).
     fn sample_count(tx: &Connection, model: &str) -> rusqlite::Result<u64> {
+        Self::counter(tx, model, "samples_kept")
+    }
+
+    /// One counter's value (0 when it was never bumped).
+    fn counter(tx: &Connection, model: &str, name: &str) -> rusqlite::Result<u64> {
         let v: Option<f64> = tx
-            .prepare_cached("SELECT value FROM counter WHERE model = ?1 AND name = 'samples_kept'")?
-            .query_row([model], |r| r.get(0))
+            .prepare_cached("SELECT value FROM counter WHERE model = ?1 AND name = ?2")?
+            .query_row([model, name], |r| r.get(0))
             .optional()?;
         Ok(v.unwrap_or(0.0).max(0.0) as u64)
     }
@@ -716,12 +783,9 @@ impl Store {
 
     /// Predictions still waiting for a label.
     pub fn awaiting(&self, model: &str) -> Result<u64, StoreError> {
-        let n: i64 = self.conn.query_row(
-            "SELECT COUNT(*) FROM pred WHERE model = ?1 AND state = ?2",
-            params![model, AWAITING],
-            |r| r.get(0),
-        )?;
-        Ok(n as u64)
+        // A counter kept in each file's transaction: counting the table is O(waiting) per
+        // publish, and at 10^6 predictions a minute with labels an hour late that is 10^7 rows.
+        Ok(Self::counter(&self.conn, model, "awaiting")?)
     }
 
     /// Wall-clock time (ms) of the model's last committed file.
