@@ -56,6 +56,10 @@ struct Pipeline {
     settled: HashMap<PathBuf, (u64, Option<SystemTime>)>,
     /// Resets (by `riskbound reset`, another process) already reflected in the snapshot.
     resets_seen: u64,
+    /// The store is a read-only view (the volume refused writes when it was opened): it is
+    /// opened again for writing before the next round, since SQLite never upgrades a
+    /// connection it opened read-only.
+    needs_reopen: bool,
 }
 
 impl Pipeline {
@@ -243,6 +247,7 @@ impl Pipeline {
                 }
                 Err(e) => {
                     let Some(store_error) = e.downcast_ref::<StoreError>() else { return Err(e) };
+                    self.needs_reopen |= store_error.needs_reopen();
                     self.health.state_write_failures.fetch_add(1, Ordering::SeqCst);
                     if !self.health.state_unwritable.swap(true, Ordering::SeqCst) {
                         self.shared.ready.store(false, Ordering::SeqCst);
@@ -257,6 +262,27 @@ impl Pipeline {
         Ok(changed)
     }
 
+    /// Opens the state for writing again after the volume refused it. Returns false while it
+    /// still refuses (counted, not logged again: the first refusal was).
+    fn reopen(&mut self) -> anyhow::Result<bool> {
+        match Store::open(&self.config.state_dir) {
+            Ok(store) => {
+                self.store = store;
+                self.needs_reopen = false;
+                if self.health.state_unwritable.swap(false, Ordering::SeqCst) {
+                    self.shared.ready.store(true, Ordering::SeqCst);
+                    tracing::info!("state database accepts writes again; ready, resuming ingest");
+                }
+                Ok(true)
+            }
+            Err(e) if e.is_disk() => {
+                self.health.state_write_failures.fetch_add(1, Ordering::SeqCst);
+                Ok(false)
+            }
+            Err(e) => Err(e.into()),
+        }
+    }
+
     fn run(
         mut self,
         stop: Arc<AtomicBool>,
@@ -268,9 +294,10 @@ impl Pipeline {
             if stop.load(Ordering::SeqCst) {
                 return Ok(());
             }
+            let writable = !self.needs_reopen || self.reopen()?;
             // A reset from another process changes what /metrics must show, with no new file.
             let reset_elsewhere = self.store.resets_total().is_ok_and(|r| r != self.resets_seen);
-            if self.round(&stop)? || reset_elsewhere {
+            if writable && (self.round(&stop)? || reset_elsewhere) {
                 self.publish()?;
             }
             rounds.fetch_add(1, Ordering::SeqCst);
@@ -332,7 +359,24 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     });
     tracing::info!(%addr, scheme, basic_auth = !config.web.users.is_empty(), "serving /metrics, /healthz, /readyz");
 
-    let store = Store::open(&config.state_dir)?;
+    // A volume that refuses writes (read-only, full, failing) does not stop the daemon: it
+    // serves the committed state read-only, not ready, and opens the state for writing as soon
+    // as the volume lets it. Any other failure (a damaged database) is fatal.
+    let (store, writable) = match Store::open(&config.state_dir) {
+        Ok(store) => (store, true),
+        Err(e) if e.is_disk() => {
+            health.state_write_failures.fetch_add(1, Ordering::SeqCst);
+            health.state_unwritable.store(true, Ordering::SeqCst);
+            tracing::error!(
+                state = %config.state_dir.display(),
+                error = %e,
+                "state volume refuses writes: not ready; committed state served read-only, retrying"
+            );
+            let view = Store::open_read_only(&config.state_dir);
+            (view.map_or_else(Store::open_in_memory, Ok)?, false)
+        }
+        Err(e) => return Err(e.into()),
+    };
     let mut pipeline = Pipeline {
         config: config.clone(),
         store,
@@ -341,12 +385,15 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         health,
         settled: HashMap::new(),
         resets_seen: 0,
+        needs_reopen: !writable,
     };
     // Resume: the snapshot of the committed state is published before anything new is read,
     // and only then is the daemon ready.
     pipeline.publish()?;
-    shared.ready.store(true, Ordering::SeqCst);
-    tracing::info!(state = %config.state_dir.display(), "state resumed; ready");
+    if writable {
+        shared.ready.store(true, Ordering::SeqCst);
+        tracing::info!(state = %config.state_dir.display(), "state resumed; ready");
+    }
 
     let (wake_tx, wake_rx) = mpsc::channel();
     let stop = Arc::new(AtomicBool::new(false));

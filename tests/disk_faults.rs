@@ -3,10 +3,12 @@
 //! resumes by itself once it can write again, with no loss. The volume is a small tmpfs mounted
 //! for the test (CI runs as root).
 //!
-//! Not tested here: a volume turning read-only under the running daemon. Linux refuses to
-//! remount a filesystem read-only while the database file is open for writing (EBUSY), so it
-//! cannot be produced from a test; SQLite then reports SQLITE_READONLY, which takes the same
-//! path as SQLITE_FULL (`StoreError::is_disk`).
+//! The read-only case is a volume that is read-only when the daemon starts (a restart onto a
+//! volume the kernel or an operator made read-only), remounted writable later. A volume
+//! turning read-only under the running daemon cannot be produced from a test: Linux refuses to
+//! remount a filesystem read-only while the database file is open for writing (EBUSY). SQLite
+//! then reports SQLITE_READONLY, which takes the same path as SQLITE_FULL
+//! (`StoreError::is_disk`) and also reopens the database (`StoreError::needs_reopen`).
 
 mod common;
 
@@ -28,6 +30,14 @@ impl Mount {
             .unwrap();
         assert!(ok.success(), "mounting a tmpfs needs root (CI runs as root)");
         Mount(at.to_path_buf())
+    }
+}
+
+impl Mount {
+    fn remount(&self, how: &str) {
+        let ok =
+            Command::new("mount").args(["-o", &format!("remount,{how}"), self.0.to_str().unwrap()]).status().unwrap();
+        assert!(ok.success(), "remount {how}");
     }
 }
 
@@ -83,6 +93,42 @@ fn a_full_volume_makes_the_daemon_not_ready_until_space_is_back() {
     assert_eq!(rows(&d), 20_100.0);
     assert_eq!(d.metrics().get("riskbound_state_unwritable", &[]), Some(0.0));
     assert!(d.log_text().contains("accepts writes again"));
+    drop(d);
+    drop(mount);
+}
+
+#[test]
+fn a_read_only_volume_serves_the_committed_state_until_it_accepts_writes() {
+    let dir = TempDir::new("erofs");
+    let mount = Mount::tmpfs(&dir.path("state"), "16m");
+    let port = common::free_port();
+    let cfg = config(&dir, port);
+    let d = Daemon::start(&cfg, port);
+    dir.drop_file("pred-0001.csv", &batch(0, 100));
+    d.wait_files("disk", "prediction", 1.0);
+    assert!(d.terminate().success());
+    // Read-only while nothing holds it open, then a restart onto it with a new file waiting.
+    mount.remount("ro");
+    dir.drop_file("pred-0002.csv", &batch(100, 300));
+    let d = Daemon::spawn(&cfg, port);
+    d.wait_until(Duration::from_secs(20), |d| d.metrics().get("riskbound_state_unwritable", &[]) == Some(1.0));
+    assert_eq!(ready(&d), 503, "not ready while the state cannot be written");
+    let m = d.metrics();
+    assert!(m.get("riskbound_state_write_failures_total", &[]).unwrap() >= 1.0);
+    assert_eq!(rows(&d), 100.0, "the committed state is served, read-only");
+    std::thread::sleep(Duration::from_millis(1500)); // a few retries
+    assert_eq!(rows(&d), 100.0, "nothing taken while the state cannot record it");
+    let log = d.log_text();
+    assert_eq!(log.matches("state volume refuses writes").count(), 1, "one clear line, not one per retry:\n{log}");
+    // Writable again: the daemon opens the state for writing by itself and takes the new file.
+    mount.remount("rw");
+    d.wait_until(Duration::from_secs(20), |d| ready(d) == 200);
+    d.wait_files("disk", "prediction", 2.0);
+    assert_eq!(rows(&d), 300.0, "every row once");
+    assert_eq!(d.metrics().get("riskbound_state_unwritable", &[]), Some(0.0));
+    let log = d.log_text();
+    assert!(log.contains("accepts writes again"));
+    assert_eq!(log.matches("state volume refuses writes").count(), 1);
     drop(d);
     drop(mount);
 }

@@ -44,11 +44,28 @@ pub enum StoreError {
     Sql(#[from] rusqlite::Error),
     #[error("state database: stored anytime state of model {model} does not parse: {reason}")]
     Tracker { model: String, reason: String },
+    /// SQLite opens a file it cannot write read-only, without an error; such a connection
+    /// would stay read-only after the volume accepts writes again, so it is refused.
+    #[error("state database {0}: the volume or the file is read-only")]
+    ReadOnly(String),
 }
 
 impl StoreError {
+    /// True when the database can only be written through a new connection: SQLite keeps a
+    /// connection it opened read-only that way.
+    pub fn needs_reopen(&self) -> bool {
+        match self {
+            StoreError::ReadOnly(_) => true,
+            StoreError::Sql(rusqlite::Error::SqliteFailure(e, _)) => e.code == rusqlite::ErrorCode::ReadOnly,
+            _ => false,
+        }
+    }
+
     /// True when the failure is the disk (full, read-only, I/O), not a logic error.
     pub fn is_disk(&self) -> bool {
+        if matches!(self, StoreError::ReadOnly(_)) {
+            return true;
+        }
         let StoreError::Sql(rusqlite::Error::SqliteFailure(e, _)) = self else { return false };
         matches!(
             e.code,
@@ -281,7 +298,11 @@ fn check_value(spec: &LossSpec, kind: Kind, value: &str) -> Result<(), RejectRea
 impl Store {
     /// Opens (creating if needed) the database in `dir`.
     pub fn open(dir: &Path) -> Result<Store, StoreError> {
-        let mut conn = Connection::open(dir.join("riskbound.sqlite"))?;
+        let path = dir.join("riskbound.sqlite");
+        let mut conn = Connection::open(&path)?;
+        if conn.is_readonly(rusqlite::MAIN_DB)? {
+            return Err(StoreError::ReadOnly(path.display().to_string()));
+        }
         // WAL lets /metrics readers and the writer proceed together; FULL makes each commit
         // durable before the file counts as taken.
         conn.pragma_update(None, "journal_mode", "WAL")?;
@@ -293,6 +314,38 @@ impl Store {
         conn.execute_batch(SCHEMA)?;
         migrate(&mut conn)?;
         Ok(Store { conn })
+    }
+
+    /// The committed state of `dir`, for reading only: what /metrics shows while the volume
+    /// refuses writes. A database left by a clean stop has no WAL file, and one cannot be
+    /// created on a read-only volume, so that case is opened immutable (no other process can
+    /// write to a read-only volume either). `None` when there is no database there.
+    pub fn open_read_only(dir: &Path) -> Option<Store> {
+        use rusqlite::OpenFlags;
+        let path = dir.join("riskbound.sqlite");
+        if !path.is_file() {
+            return None;
+        }
+        let flags = OpenFlags::SQLITE_OPEN_READ_ONLY | OpenFlags::SQLITE_OPEN_URI | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let readable = |c: &Connection| c.query_row("SELECT COUNT(*) FROM sqlite_master", [], |r| r.get::<_, i64>(0));
+        let plain = Connection::open_with_flags(&path, flags).ok().filter(|c| readable(c).is_ok());
+        let conn = plain.or_else(|| {
+            // A URI path needs %, ? and # escaped.
+            let escaped: String = path
+                .display()
+                .to_string()
+                .chars()
+                .map(|c| match c {
+                    '%' => "%25".to_string(),
+                    '?' => "%3f".to_string(),
+                    '#' => "%23".to_string(),
+                    c => c.to_string(),
+                })
+                .collect();
+            let uri = format!("file:{escaped}?immutable=1");
+            Connection::open_with_flags(uri, flags).ok().filter(|c| readable(c).is_ok())
+        })?;
+        Some(Store { conn })
     }
 
     /// A database in memory, for tests and fuzzing: the same schema and logic, no durability.

@@ -110,6 +110,24 @@ impl Daemon {
     /// Like [`Daemon::start`] with extra arguments; with a web config the readiness wait is on
     /// the log line instead (the probe would need TLS).
     pub fn start_with(config: &Path, port: u16, extra: &[&str]) -> Daemon {
+        let d = Self::spawn_with(config, port, extra);
+        if extra.is_empty() {
+            d.wait_until(Duration::from_secs(20), |d| d.get("/readyz").map(|(s, _)| s == 200).unwrap_or(false));
+        } else {
+            d.wait_until(Duration::from_secs(20), |d| d.log_text().contains("state resumed; ready"));
+        }
+        d
+    }
+
+    /// Starts `riskbound run --config CONFIG` and waits only until /healthz answers (the
+    /// daemon may be serving but not ready).
+    pub fn spawn(config: &Path, port: u16) -> Daemon {
+        let d = Self::spawn_with(config, port, &[]);
+        d.wait_until(Duration::from_secs(20), |d| d.get("/healthz").map(|(s, _)| s == 200).unwrap_or(false));
+        d
+    }
+
+    fn spawn_with(config: &Path, port: u16, extra: &[&str]) -> Daemon {
         static STARTS: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(0);
         let n = STARTS.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
         let log_path = config.with_extension(format!("log.{n}"));
@@ -123,13 +141,7 @@ impl Daemon {
             .stderr(log)
             .spawn()
             .unwrap();
-        let d = Daemon { child, port, log: log_path };
-        if extra.is_empty() {
-            d.wait_until(Duration::from_secs(20), |d| d.get("/readyz").map(|(s, _)| s == 200).unwrap_or(false));
-        } else {
-            d.wait_until(Duration::from_secs(20), |d| d.log_text().contains("state resumed; ready"));
-        }
-        d
+        Daemon { child, port, log: log_path }
     }
 
     /// GET a path: (status, body).
