@@ -77,7 +77,7 @@ impl Rules {
             self.window_errors -= u64::from(self.window.pop_front().unwrap());
         }
         let mut out = [false; 8];
-        if self.total.0 as usize % LOOK == 0 {
+        if (self.total.0 as usize).is_multiple_of(LOOK) {
             self.looks += 1;
             let k = self.looks as f64;
             let spent = DELTA / (k * (k + 1.0));

@@ -64,7 +64,7 @@ fn write_rule(out: &mut String, r: &Rule<'_>) {
 /// A duration as Prometheus writes it (whole seconds, largest unit that divides).
 fn prom_duration(secs: u64) -> String {
     for (unit, n) in [("d", 86_400), ("h", 3600), ("m", 60)] {
-        if secs >= n && secs % n == 0 {
+        if secs >= n && secs.is_multiple_of(n) {
             return format!("{}{unit}", secs / n);
         }
     }

@@ -130,7 +130,7 @@ fn boundary(search: &Search<'_>, mut a: Point, mut r: Point) -> f64 {
     while (r.m - a.m).abs() > TOLERANCE {
         step += 1;
         let width = r.m - a.m;
-        let c = if step % 3 == 0 || !(a.h.is_finite() && r.h.is_finite()) || r.h <= a.h {
+        let c = if step.is_multiple_of(3) || !(a.h.is_finite() && r.h.is_finite()) || r.h <= a.h {
             0.5 * (a.m + r.m)
         } else {
             let t = (-a.h / (r.h - a.h)).clamp(0.0, 1.0);

@@ -147,6 +147,234 @@ fn combos(m: usize, depth: usize) -> Vec<Vec<usize>> {
     out
 }
 
+/// A u64 whose unsigned order is `f64::total_cmp`'s order (sign bit flipped for positives,
+/// every bit for negatives).
+fn total_order_key(v: f64) -> u64 {
+    let b = v.to_bits();
+    if b >> 63 == 1 {
+        !b
+    } else {
+        b | 1 << 63
+    }
+}
+
+/// Codes strings densely in order of first appearance: (code of each, the distinct strings).
+/// A seeded multiply-xor hash over 8-byte words and an open-addressing table that starts in L1
+/// cache: a few ns a row, where std's SipHash map costs ~15. `None` when probes run long (keys
+/// built to collide with the seed they cannot see should not occur; if they do, the caller
+/// codes with SipHash instead, so hostile values cost time linear in the rows either way).
+/// Codes do not depend on the seed.
+fn code_strings<'a>(values: impl Iterator<Item = &'a str> + Clone) -> Option<(Vec<u32>, Vec<String>)> {
+    use std::hash::BuildHasher;
+    const EMPTY: u32 = u32::MAX;
+    const MAX_PROBE: usize = 64;
+    thread_local!(static SEED: u64 = std::collections::hash_map::RandomState::new().hash_one(0x5eed_u64));
+    let seed = SEED.with(|s| *s);
+    let hash = |v: &str| -> u64 {
+        let mut h = seed ^ v.len() as u64;
+        let b = v.as_bytes();
+        let mut chunks = b.chunks_exact(8);
+        for c in &mut chunks {
+            h = (h.rotate_left(5) ^ u64::from_le_bytes(c.try_into().expect("8 bytes")))
+                .wrapping_mul(0x9E37_79B9_7F4A_7C15);
+        }
+        let mut last = [0u8; 8];
+        last[..chunks.remainder().len()].copy_from_slice(chunks.remainder());
+        h = (h.rotate_left(5) ^ u64::from_le_bytes(last)).wrapping_mul(0x9E37_79B9_7F4A_7C15);
+        // MurmurHash3's 64-bit finaliser: every input bit reaches the top bits the table uses.
+        h ^= h >> 33;
+        h = h.wrapping_mul(0xFF51_AFD7_ED55_8CCD);
+        h ^= h >> 33;
+        h = h.wrapping_mul(0xC4CE_B9FE_1A85_EC53);
+        h ^ (h >> 33)
+    };
+    let mut bits = 6u32;
+    let mut slots = vec![(0u64, EMPTY); 1 << bits]; // (hash, code)
+    let mut names: Vec<&str> = Vec::new();
+    let mut hashes: Vec<u64> = Vec::new();
+    let mut codes = Vec::new();
+    for v in values {
+        let hv = hash(v);
+        let mask = (1usize << bits) - 1;
+        let mut at = (hv >> (64 - bits)) as usize;
+        let mut probes = 0;
+        let code = loop {
+            let (sh, code) = slots[at];
+            if code == EMPTY {
+                slots[at] = (hv, names.len() as u32);
+                names.push(v);
+                hashes.push(hv);
+                break names.len() as u32 - 1;
+            }
+            if sh == hv && same_str(names[code as usize], v) {
+                break code;
+            }
+            probes += 1;
+            if probes > MAX_PROBE {
+                return None;
+            }
+            at = (at + 1) & mask;
+        };
+        codes.push(code);
+        if 4 * names.len() > 1 << bits {
+            bits += 1;
+            let mask = (1usize << bits) - 1;
+            slots = vec![(0u64, EMPTY); 1 << bits];
+            for (code, &hv) in hashes.iter().enumerate() {
+                let mut at = (hv >> (64 - bits)) as usize;
+                while slots[at].1 != EMPTY {
+                    at = (at + 1) & mask;
+                }
+                slots[at] = (hv, code as u32);
+            }
+        }
+    }
+    Some((codes, names.into_iter().map(str::to_string).collect()))
+}
+
+/// String equality without a call to memcmp for the short strings categories usually are.
+#[inline]
+fn same_str(a: &str, b: &str) -> bool {
+    let (a, b) = (a.as_bytes(), b.as_bytes());
+    if a.len() != b.len() {
+        return false;
+    }
+    if a.len() <= 16 {
+        let (mut x, mut y) = ([0u8; 16], [0u8; 16]);
+        x[..a.len()].copy_from_slice(a);
+        y[..b.len()].copy_from_slice(b);
+        return u128::from_le_bytes(x) == u128::from_le_bytes(y);
+    }
+    a == b
+}
+
+/// [`code_strings`] with std's SipHash map: the fallback whose cost no input can inflate.
+fn code_strings_sip<'a>(values: impl Iterator<Item = &'a str>) -> (Vec<u32>, Vec<String>) {
+    let mut index: HashMap<&str, u32> = HashMap::new();
+    let mut names = Vec::new();
+    let codes = values
+        .map(|v| {
+            *index.entry(v).or_insert_with(|| {
+                names.push(v.to_string());
+                names.len() as u32 - 1
+            })
+        })
+        .collect();
+    (codes, names)
+}
+
+/// The inverse of [`total_order_key`].
+fn from_total_order_key(k: u64) -> f64 {
+    f64::from_bits(if k >> 63 == 1 { k & !(1 << 63) } else { !k })
+}
+
+/// Sorts (key, payload) pairs by key, stably: least-significant-byte radix sort, one
+/// histogram pass for all eight bytes, and no pass for a byte every key shares (a feature's
+/// values in [0, 1] share their top bytes). O(n) per byte, where a comparison sort is
+/// O(n log n) with a branch per comparison that ties and random data both mispredict.
+fn radix_sorted(mut a: Vec<(u64, u32)>) -> Vec<(u64, u32)> {
+    let n = a.len();
+    let mut counts = vec![[0usize; 256]; 8];
+    for &(k, _) in &a {
+        for (d, c) in counts.iter_mut().enumerate() {
+            c[(k >> (8 * d)) as usize & 255] += 1;
+        }
+    }
+    let mut b = vec![(0u64, 0u32); n];
+    for (d, c) in counts.iter().enumerate() {
+        if c.contains(&n) {
+            continue; // every key has the same byte here
+        }
+        let mut next = [0usize; 256];
+        let mut sum = 0;
+        for (slot, &x) in next.iter_mut().zip(c) {
+            *slot = sum;
+            sum += x;
+        }
+        for &(k, p) in &a {
+            let digit = (k >> (8 * d)) as usize & 255;
+            b[next[digit]] = (k, p);
+            next[digit] += 1;
+        }
+        std::mem::swap(&mut a, &mut b);
+    }
+    a
+}
+
+/// The stable sort of [`radix_sorted`] for the common case of heavily tied values (rounded
+/// amounts, small integers): the distinct keys are found with a hash table, sorted among
+/// themselves, and the rows dealt into them by a counting sort, O(n) in all. `None` when more
+/// than n/8 keys are distinct, or when the table's probes run long (keys chosen to collide):
+/// the radix sort is then the better tool, and its time does not depend on the keys.
+fn sorted_few_distinct(keys: &[u64]) -> Option<Vec<(u64, u32)>> {
+    const EMPTY: u32 = u32::MAX;
+    const MAX_PROBE: usize = 64;
+    let limit = keys.len() / 8;
+    // The table starts small (in L1 cache) and doubles at a quarter load (linear probing: clusters stay short).
+    let mut bits = 10u32;
+    let mut slot_of = vec![EMPTY; 1 << bits]; // index into `uniq`
+    let mut uniq: Vec<u64> = Vec::new();
+    let mut rank_of_row = Vec::with_capacity(keys.len());
+    let hash = |k: u64, bits: u32| (k.wrapping_mul(0x9E37_79B9_7F4A_7C15) >> (64 - bits)) as usize;
+    for &k in keys {
+        // Multiply-shift hashing (Fibonacci), linear probing.
+        let mask = (1usize << bits) - 1;
+        let mut h = hash(k, bits);
+        let mut probes = 0;
+        let u = loop {
+            let at = slot_of[h];
+            if at == EMPTY {
+                if uniq.len() >= limit {
+                    return None;
+                }
+                slot_of[h] = uniq.len() as u32;
+                uniq.push(k);
+                break uniq.len() as u32 - 1;
+            }
+            if uniq[at as usize] == k {
+                break at;
+            }
+            probes += 1;
+            if probes > MAX_PROBE {
+                return None;
+            }
+            h = (h + 1) & mask;
+        };
+        rank_of_row.push(u);
+        if 4 * uniq.len() > 1 << bits {
+            bits += 1;
+            let mask = (1usize << bits) - 1;
+            slot_of = vec![EMPTY; 1 << bits];
+            for (u, &k) in uniq.iter().enumerate() {
+                let mut h = hash(k, bits);
+                while slot_of[h] != EMPTY {
+                    h = (h + 1) & mask;
+                }
+                slot_of[h] = u as u32;
+            }
+        }
+    }
+    // Rank the distinct keys, then count and place the rows (stable: rows in input order).
+    let mut by_key: Vec<u32> = (0..uniq.len() as u32).collect();
+    by_key.sort_unstable_by_key(|&u| uniq[u as usize]);
+    let mut start = vec![0usize; uniq.len()];
+    let mut counts = vec![0usize; uniq.len()];
+    for &u in &rank_of_row {
+        counts[u as usize] += 1;
+    }
+    let mut sum = 0;
+    for &u in &by_key {
+        start[u as usize] = sum;
+        sum += counts[u as usize];
+    }
+    let mut out = vec![(0u64, 0u32); keys.len()];
+    for (p, &u) in rank_of_row.iter().enumerate() {
+        out[start[u as usize]] = (uniq[u as usize], p as u32);
+        start[u as usize] += 1;
+    }
+    Some(out)
+}
+
 impl Scanner {
     /// Indexes the rows `rows` of `t` (all rows when `rows` is None); conjunctions of up to
     /// `depth` categorical features become features of their own.
@@ -161,27 +389,23 @@ impl Scanner {
         };
         // Each categorical feature coded once (no allocation per row); a conjunction's code is
         // composed from its parts' codes.
-        let single: Vec<(Vec<u32>, Vec<String>)> = t
+        let mut single: Vec<(Vec<u32>, Vec<String>)> = t
             .categorical
             .iter()
             .map(|(_, values)| {
-                let mut index: HashMap<&str, u32> = HashMap::new();
-                let mut names = Vec::new();
-                let codes = rows
-                    .iter()
-                    .map(|&r| {
-                        let v = values[r as usize].as_str();
-                        *index.entry(v).or_insert_with(|| {
-                            names.push(v.to_string());
-                            names.len() as u32 - 1
-                        })
-                    })
-                    .collect();
-                (codes, names)
+                let cell = |r: &u32| values[*r as usize].as_str();
+                code_strings(rows.iter().map(cell)).unwrap_or_else(|| code_strings_sip(rows.iter().map(cell)))
             })
             .collect();
         let mut cats = Vec::new();
         for combo in combos(t.categorical.len(), depth.max(1)) {
+            if let [c] = combo[..] {
+                // A single feature: its codes as they are (moved when no conjunction needs them).
+                let labels = single[c].1.iter().map(|v| vec![(t.categorical[c].0.clone(), v.clone())]).collect();
+                let codes = if depth <= 1 { std::mem::take(&mut single[c].0) } else { single[c].0.clone() };
+                cats.push(CatIndex { labels, codes });
+                continue;
+            }
             let mut index: HashMap<u64, u32> = HashMap::new();
             let mut labels: Vec<Vec<(String, String)>> = Vec::new();
             let mut codes = Vec::with_capacity(rows.len());
@@ -204,23 +428,33 @@ impl Scanner {
         }
         let mut nums = Vec::new();
         for (name, values) in &t.numeric {
-            let mut keyed: Vec<(f64, u32)> =
-                (0..rows.len() as u32).map(|p| (values[rows[p as usize] as usize], p)).collect();
-            keyed.sort_unstable_by(|a, b| a.0.total_cmp(&b.0));
+            let keys: Vec<u64> = rows.iter().map(|&r| total_order_key(values[r as usize])).collect();
+            let sorted = match sorted_few_distinct(&keys) {
+                Some(s) => s,
+                None => radix_sorted(keys.iter().zip(0u32..).map(|(&k, p)| (k, p)).collect()),
+            };
+            // One pass: the order, and where each run of equal values ends (−0 and +0 are
+            // one value, as f64 equality has it).
+            let mut order = Vec::with_capacity(sorted.len());
             let mut ends = Vec::new();
             let mut uniq: Vec<f64> = Vec::new();
-            for (pos, &(v, _)) in keyed.iter().enumerate() {
-                if uniq.last() != Some(&v) {
-                    if !uniq.is_empty() {
-                        ends.push(pos as u32);
+            let mut last_key = None;
+            for (pos, &(k, p)) in sorted.iter().enumerate() {
+                if last_key != Some(k) {
+                    last_key = Some(k);
+                    let v = from_total_order_key(k);
+                    if uniq.last() != Some(&v) {
+                        if !uniq.is_empty() {
+                            ends.push(pos as u32);
+                        }
+                        uniq.push(v);
                     }
-                    uniq.push(v);
                 }
+                order.push(p);
             }
             if !uniq.is_empty() {
-                ends.push(keyed.len() as u32);
+                ends.push(sorted.len() as u32);
             }
-            let order = keyed.into_iter().map(|(_, p)| p).collect();
             nums.push(NumIndex { name: name.clone(), order, ends, values: uniq });
         }
         Scanner { n: rows.len(), cats, nums }
@@ -423,7 +657,7 @@ pub fn uniform(scan: &Scanner, excess: &[f64], theta: f64, k: usize, delta: f64,
         for b in bits.iter_mut() {
             *b = rng.next_u64();
         }
-        if scan.n() % 64 != 0 {
+        if !scan.n().is_multiple_of(64) {
             let last = bits.len() - 1;
             bits[last] &= (1u64 << (scan.n() % 64)) - 1;
         }
@@ -486,14 +720,12 @@ fn two_valued(excess: &[f64], theta: f64) -> Option<f64> {
 }
 
 /// Counters for 64 sign draws at once, bit-sliced: plane p holds bit p of each draw's count.
+/// The portable counting kernel.
 struct Planes(Vec<u64>);
 
 impl Planes {
     fn new(bits: usize) -> Planes {
         Planes(vec![0; bits])
-    }
-    fn clear(&mut self) {
-        self.0.iter_mut().for_each(|p| *p = 0);
     }
     /// Adds the 64 one-bit values of `x` (a ripple of carries; two planes on average).
     #[inline]
@@ -508,25 +740,158 @@ impl Planes {
         }
     }
     /// The 64 counts.
-    fn counts(&self, out: &mut [f64; 64]) {
-        out.iter_mut().for_each(|c| *c = 0.0);
+    fn counts(&self, out: &mut [u32; 64]) {
+        out.iter_mut().for_each(|c| *c = 0);
         for (p, &plane) in self.0.iter().enumerate() {
             let mut m = plane;
-            let w = (1u64 << p) as f64;
             while m != 0 {
-                out[m.trailing_zeros() as usize] += w;
+                out[m.trailing_zeros() as usize] += 1 << p;
                 m &= m - 1;
             }
         }
     }
 }
 
+/// For each of the 64 draws j, how many of `rows` have bit j of their word set.
+type CountBits = fn(words: &[u64], rows: &[u32], out: &mut [u32; 64]);
+
+/// The portable kernel: bit-sliced counters, then one pass over their set bits.
+fn count_bits_portable(words: &[u64], rows: &[u32], out: &mut [u32; 64]) {
+    let mut planes = Planes::new((usize::BITS - rows.len().leading_zeros()) as usize + 1);
+    for &r in rows {
+        planes.add(words[r as usize]);
+    }
+    planes.counts(out);
+}
+
+/// The AVX-512 kernel: the 64 counts live in two registers of 32 16-bit lanes, and each row is
+/// two masked adds (its word is the mask), so a row costs a cycle or so whatever its bits are.
+/// Lanes are emptied into `out` every 65,535 rows, before a 16-bit lane could overflow.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx512bw")]
+fn count_bits_avx512_inner(words: &[u64], rows: &[u32], out: &mut [u32; 64]) {
+    use std::arch::x86_64::{_mm512_mask_add_epi16, _mm512_set1_epi16, _mm512_setzero_si512, _mm512_storeu_si512};
+    let one = _mm512_set1_epi16(1);
+    out.iter_mut().for_each(|c| *c = 0);
+    for chunk in rows.chunks(u16::MAX as usize) {
+        let (mut lo, mut hi) = (_mm512_setzero_si512(), _mm512_setzero_si512());
+        for &r in chunk {
+            let w = words[r as usize];
+            lo = _mm512_mask_add_epi16(lo, w as u32, lo, one);
+            hi = _mm512_mask_add_epi16(hi, (w >> 32) as u32, hi, one);
+        }
+        let mut lanes = [0u16; 64];
+        // SAFETY: `lanes` holds 64 u16 = two 512-bit stores, unaligned stores allowed.
+        unsafe {
+            _mm512_storeu_si512(lanes.as_mut_ptr().cast(), lo);
+            _mm512_storeu_si512(lanes.as_mut_ptr().add(32).cast(), hi);
+        }
+        for (o, &l) in out.iter_mut().zip(&lanes) {
+            *o += u32::from(l);
+        }
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+fn count_bits_avx512(words: &[u64], rows: &[u32], out: &mut [u32; 64]) {
+    // SAFETY: only handed out by `count_bits_kernel` after the CPU was seen to have the
+    // features the function is compiled for.
+    unsafe { count_bits_avx512_inner(words, rows, out) }
+}
+
+/// True when this CPU runs the AVX-512 paths (detected once, then cached by std).
+fn has_avx512() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    if std::arch::is_x86_feature_detected!("avx512f") && std::arch::is_x86_feature_detected!("avx512bw") {
+        return true;
+    }
+    false
+}
+
+/// The fastest counting kernel this CPU runs. Both give the same integers, so results do not
+/// depend on the machine (tested).
+#[cfg(test)]
+fn count_bits_kernel() -> CountBits {
+    #[cfg(target_arch = "x86_64")]
+    if has_avx512() {
+        return count_bits_avx512;
+    }
+    count_bits_portable
+}
+
+/// One feature's rows laid out for counting: group by group (a category, or a run of tied
+/// values in sorted order), and inside each group the rows whose loss is 1 first.
+struct Grouped {
+    rows: Vec<u32>,
+    /// Per group: (end of its loss-1 rows, end of the group), as positions in `rows`.
+    bounds: Vec<(u32, u32)>,
+}
+
+impl Grouped {
+    /// From each row's group (rows may come in any order; `groups` groups in all): a counting
+    /// sort on the key 2·group + (loss is 0), so each group's loss-1 rows come first. Stable,
+    /// O(n + groups), and no branch on the losses.
+    fn from_keys(rows_and_groups: impl Iterator<Item = (u32, u32)> + Clone, groups: usize, is_one: &[bool]) -> Grouped {
+        let key = |r: u32, g: u32| 2 * g as usize + usize::from(!is_one[r as usize]);
+        let mut start = vec![0u32; 2 * groups + 1];
+        let mut n = 0;
+        for (r, g) in rows_and_groups.clone() {
+            start[key(r, g) + 1] += 1;
+            n += 1;
+        }
+        for b in 1..start.len() {
+            start[b] += start[b - 1];
+        }
+        let bounds = (0..groups).map(|g| (start[2 * g + 1], start[2 * g + 2])).collect();
+        let mut rows = vec![0u32; n];
+        for (r, g) in rows_and_groups {
+            let b = &mut start[key(r, g)];
+            rows[*b as usize] = r;
+            *b += 1;
+        }
+        Grouped { rows, bounds }
+    }
+
+    /// A numeric feature's runs of tied values, in sorted order.
+    fn by_value(f: &NumIndex, is_one: &[bool]) -> Grouped {
+        let group_of = f.ends.iter().enumerate().flat_map(|(g, &end)| {
+            let from = if g == 0 { 0 } else { f.ends[g - 1] };
+            std::iter::repeat_n(g as u32, (end - from) as usize)
+        });
+        Grouped::from_keys(f.order.iter().copied().zip(group_of), f.ends.len(), is_one)
+    }
+
+    /// The rows of each code, in code order.
+    fn by_code(codes: &[u32], m: usize, is_one: &[bool]) -> Grouped {
+        Grouped::from_keys(codes.iter().enumerate().map(|(i, &c)| (i as u32, c)), m, is_one)
+    }
+
+    /// Calls `f` with each group's sums Σ_{i∈g} e_i s_i for the 64 draws of `words`, in
+    /// group order. With c the rows of each loss value whose sign is +, n all of them:
+    /// Σ = (1 − θ)(2 c₁ − n₁) − θ (2 c₀ − n₀).
+    #[inline(always)]
+    fn sums(&self, words: &[u64], high: f64, theta: f64, count: CountBits, mut f: impl FnMut(&[f64; 64])) {
+        let (mut c1, mut c0) = ([0u32; 64], [0u32; 64]);
+        let mut g = [0.0_f64; 64];
+        let mut start = 0usize;
+        for &(mid, end) in &self.bounds {
+            let (mid, end) = (mid as usize, end as usize);
+            count(words, &self.rows[start..mid], &mut c1);
+            count(words, &self.rows[mid..end], &mut c0);
+            let (n1, n0) = ((mid - start) as f64, (end - mid) as f64);
+            for j in 0..64 {
+                g[j] = high * (2.0 * f64::from(c1[j]) - n1) - theta * (2.0 * f64::from(c0[j]) - n0);
+            }
+            f(&g);
+            start = end;
+        }
+    }
+}
+
 /// [`uniform`] for 0-1 losses: 64 sign draws at a time. Row i's signs for the 64 draws of a
-/// block are the bits of one word, so each pass over a feature's rows adds words into
-/// bit-sliced counters (one per tie group and loss value) instead of adding 64 signed numbers;
-/// the group sums of every draw then follow from the counts:
-/// Σ_{i∈g} e_i s_i = (1 − θ)(2 c₁ − n₁) − θ (2 c₀ − n₀), c the rows of each loss value with a
-/// positive sign, n all of them.
+/// block are the bits of one word, so a pass over a feature's rows counts, per group and loss
+/// value, the rows with a + sign in every draw at once (see [`Grouped::sums`]) instead of
+/// adding 64 signed numbers per row.
 fn uniform_binary(
     scan: &Scanner,
     excess: &[f64],
@@ -536,14 +901,53 @@ fn uniform_binary(
     delta: f64,
     rng: &mut Seeded,
 ) -> Uniform {
+    #[cfg(target_arch = "x86_64")]
+    if has_avx512() {
+        // SAFETY: the CPU has the features the function is compiled for.
+        return unsafe { uniform_binary_avx512(scan, excess, high, theta, k, delta, rng) };
+    }
+    uniform_binary_with(scan, excess, high, theta, k, delta, rng, count_bits_portable)
+}
+
+/// The same computation compiled for AVX-512, so the 64-draw loops over f64 (group sums,
+/// prefixes, Kadane) run eight lanes at a time. IEEE arithmetic lane by lane: the results are
+/// the portable build's to the bit (tested).
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx512bw")]
+fn uniform_binary_avx512(
+    scan: &Scanner,
+    excess: &[f64],
+    high: f64,
+    theta: f64,
+    k: usize,
+    delta: f64,
+    rng: &mut Seeded,
+) -> Uniform {
+    uniform_binary_with(scan, excess, high, theta, k, delta, rng, count_bits_avx512)
+}
+
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn uniform_binary_with(
+    scan: &Scanner,
+    excess: &[f64],
+    high: f64,
+    theta: f64,
+    k: usize,
+    delta: f64,
+    rng: &mut Seeded,
+    count: CountBits,
+) -> Uniform {
     let n = scan.n();
     let nf = n as f64;
     let c0 = 0.5 - theta;
     let is_one: Vec<bool> = excess.iter().map(|&e| e == high).collect();
-    let planes = (usize::BITS - n.leading_zeros()) as usize + 1;
+    // The layouts depend on the losses only, so they are built once for every draw.
+    let cats: Vec<Grouped> = scan.cats.iter().map(|c| Grouped::by_code(&c.codes, c.labels.len(), &is_one)).collect();
+    let nums: Vec<Grouped> = scan.nums.iter().map(|f| Grouped::by_value(f, &is_one)).collect();
+    let all: Vec<u32> = (0..n as u32).collect();
     let mut words = vec![0u64; n];
-    let (mut ones, mut zeros) = (Planes::new(planes), Planes::new(planes));
-    let (mut c1, mut c0s) = ([0.0; 64], [0.0; 64]);
+    let mut positives = [0u32; 64];
     let mut total = 0.0;
     let mut done = 0;
     while done < k {
@@ -553,67 +957,18 @@ fn uniform_binary(
         }
         let mut best = [0.0_f64; 64];
         // Σ_i s_i per draw: 2·(positive signs) − n.
-        ones.clear();
-        for &w in &words {
-            ones.add(w);
-        }
-        let mut positives = [0.0; 64];
-        ones.counts(&mut positives);
-        let group_sums = |ones: &Planes,
-                          zeros: &Planes,
-                          n1: f64,
-                          n0: f64,
-                          c1: &mut [f64; 64],
-                          c0s: &mut [f64; 64],
-                          out: &mut [f64; 64]| {
-            ones.counts(c1);
-            zeros.counts(c0s);
-            for j in 0..64 {
-                out[j] = high * (2.0 * c1[j] - n1) - theta * (2.0 * c0s[j] - n0);
-            }
-        };
-        let mut g = [0.0; 64];
-        for c in &scan.cats {
-            // One pass over the rows, each word into its category's counters.
-            let m = c.labels.len();
-            let mut by_code: Vec<(Planes, Planes, f64, f64)> =
-                (0..m).map(|_| (Planes::new(planes), Planes::new(planes), 0.0, 0.0)).collect();
-            for (i, &code) in c.codes.iter().enumerate() {
-                let slot = &mut by_code[code as usize];
-                if is_one[i] {
-                    slot.0.add(words[i]);
-                    slot.2 += 1.0;
-                } else {
-                    slot.1.add(words[i]);
-                    slot.3 += 1.0;
-                }
-            }
-            for (o, z, n1, n0) in &by_code {
-                group_sums(o, z, *n1, *n0, &mut c1, &mut c0s, &mut g);
+        count(&words, &all, &mut positives);
+        for c in &cats {
+            c.sums(&words, high, theta, count, |g| {
                 for j in 0..64 {
                     best[j] = best[j].max(g[j]);
                 }
-            }
+            });
         }
-        for f in &scan.nums {
+        for f in &nums {
             let (mut prefix, mut min_p, mut max_p, mut run, mut kad) =
                 ([0.0_f64; 64], [0.0_f64; 64], [0.0_f64; 64], [0.0_f64; 64], [0.0_f64; 64]);
-            let mut start = 0usize;
-            for &end in &f.ends {
-                ones.clear();
-                zeros.clear();
-                let (mut n1, mut n0) = (0.0, 0.0);
-                for &i in &f.order[start..end as usize] {
-                    if is_one[i as usize] {
-                        ones.add(words[i as usize]);
-                        n1 += 1.0;
-                    } else {
-                        zeros.add(words[i as usize]);
-                        n0 += 1.0;
-                    }
-                }
-                start = end as usize;
-                group_sums(&ones, &zeros, n1, n0, &mut c1, &mut c0s, &mut g);
+            f.sums(&words, high, theta, count, |g| {
                 for j in 0..64 {
                     prefix[j] += g[j];
                     max_p[j] = max_p[j].max(prefix[j]);
@@ -621,13 +976,13 @@ fn uniform_binary(
                     run[j] = (run[j] + g[j]).max(0.0);
                     kad[j] = kad[j].max(run[j]);
                 }
-            }
+            });
             for j in 0..64 {
                 best[j] = best[j].max(max_p[j]).max(prefix[j] - min_p[j]).max(kad[j]);
             }
         }
         for j in 0..take {
-            total += best[j] / nf - c0 * (2.0 * positives[j] - nf) / nf;
+            total += best[j] / nf - c0 * (2.0 * f64::from(positives[j]) - nf) / nf;
         }
         done += take;
     }

@@ -171,7 +171,7 @@ fn threshold_class_supremum_agrees_with_brute_force() {
         let mut r = Seeded::new(seed);
         let n = 3 + (seed as usize % 30);
         let scores: Vec<f64> = (0..n).map(|_| (r.next_u64() % 6) as f64 / 5.0).collect();
-        let y: Vec<bool> = (0..n).map(|_| r.next_u64() % 3 == 0).collect();
+        let y: Vec<bool> = (0..n).map(|_| r.next_u64().is_multiple_of(3)).collect();
         let s: Vec<f64> = (0..n).map(|_| r.sign()).collect();
         let rec = recalibrated(&scores, &y, 1, 0.05, &mut Seeded::new(1));
         let mut vals = scores.clone();
@@ -231,4 +231,120 @@ fn the_bit_sliced_path_equals_the_plain_computation_for_zero_one_losses() {
         done += 64;
     }
     assert!((got.rademacher - total / k as f64).abs() < 1e-12, "{} vs {}", got.rademacher, total / k as f64);
+}
+
+#[test]
+fn the_radix_sort_orders_as_total_cmp_and_keeps_ties_in_place() {
+    let mut r = Seeded::new(3);
+    let mut v: Vec<f64> = (0..5000).map(|_| ((r.next_u64() % 2001) as f64 - 1000.0) / 7.0).collect();
+    v.extend([0.0, -0.0, f64::INFINITY, f64::NEG_INFINITY, f64::MIN_POSITIVE, -f64::MIN_POSITIVE, 1e300, -1e300]);
+    let got = super::radix_sorted(v.iter().enumerate().map(|(i, &x)| (super::total_order_key(x), i as u32)).collect());
+    let mut want: Vec<(f64, u32)> = v.iter().enumerate().map(|(i, &x)| (x, i as u32)).collect();
+    want.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1))); // stable: ties by position
+    let got: Vec<(f64, u32)> = got.into_iter().map(|(_, i)| (v[i as usize], i)).collect();
+    assert_eq!(got.len(), want.len());
+    for (g, w) in got.iter().zip(&want) {
+        assert_eq!((g.0.to_bits(), g.1), (w.0.to_bits(), w.1));
+    }
+}
+
+#[test]
+fn both_counting_kernels_give_the_same_counts() {
+    // The AVX-512 kernel (where the CPU has it) against the portable one, including groups past
+    // 65,535 rows where the 16-bit lanes are emptied.
+    let mut r = Seeded::new(11);
+    let words: Vec<u64> = (0..200_000).map(|_| r.next_u64()).collect();
+    let fast = super::count_bits_kernel();
+    for len in [0usize, 1, 7, 64, 1000, 65_535, 65_536, 140_000] {
+        let rows: Vec<u32> = (0..len).map(|_| (r.next_u64() % words.len() as u64) as u32).collect();
+        let (mut a, mut b) = ([0u32; 64], [0u32; 64]);
+        super::count_bits_portable(&words, &rows, &mut a);
+        fast(&words, &rows, &mut b);
+        assert_eq!(a, b, "{len} rows");
+        // And against the definition.
+        for j in [0usize, 31, 32, 63] {
+            assert_eq!(a[j] as usize, rows.iter().filter(|&&i| words[i as usize] >> j & 1 == 1).count());
+        }
+    }
+}
+
+#[test]
+fn the_tied_value_sort_equals_the_radix_sort_or_declines() {
+    let mut r = Seeded::new(8);
+    // Few distinct values: taken by the hash path, same result as the radix sort.
+    let keys: Vec<u64> = (0..20_000).map(|_| super::total_order_key((r.next_u64() % 300) as f64 / 10.0)).collect();
+    let pairs: Vec<(u64, u32)> = keys.iter().zip(0u32..).map(|(&k, p)| (k, p)).collect();
+    assert_eq!(super::sorted_few_distinct(&keys), Some(super::radix_sorted(pairs)));
+    // Mostly distinct values: declined.
+    let keys: Vec<u64> = (0..20_000).map(|_| r.next_u64()).collect();
+    assert_eq!(super::sorted_few_distinct(&keys), None);
+    // Keys built to collide under the multiply-shift hash: 200 distinct keys (few enough for
+    // the hash path) that all land in slot 0, declined after a bounded probe.
+    let n = 16_000usize;
+    let bits = 10; // the table's starting size, 2^10: 200 keys never make it grow
+    let a: u64 = 0x9E37_79B9_7F4A_7C15;
+    let mut inv = a; // the multiplier's inverse mod 2^64, by Newton's iteration
+    for _ in 0..6 {
+        inv = inv.wrapping_mul(2u64.wrapping_sub(a.wrapping_mul(inv)));
+    }
+    assert_eq!(a.wrapping_mul(inv), 1);
+    let distinct: Vec<u64> = (1..=200u64).map(|j| j.wrapping_mul(inv)).collect();
+    assert!(distinct.iter().all(|&k| k.wrapping_mul(a) >> (64 - bits) == 0));
+    let keys: Vec<u64> = (0..n).map(|i| distinct[i % 200]).collect();
+    assert_eq!(super::sorted_few_distinct(&keys), None);
+}
+
+#[test]
+fn both_string_codings_agree() {
+    let mut r = Seeded::new(4);
+    for distinct in [1u64, 3, 40, 700, 5000] {
+        let values: Vec<String> = (0..20_000)
+            .map(|_| format!("value-{}-{}", r.next_u64() % distinct, "x".repeat((r.next_u64() % 20) as usize)))
+            .collect();
+        let fast = super::code_strings(values.iter().map(String::as_str)).expect("no long probes on these");
+        let sip = super::code_strings_sip(values.iter().map(String::as_str));
+        assert_eq!(fast, sip, "{distinct} distinct");
+    }
+    assert_eq!(super::code_strings(std::iter::empty()), Some((Vec::new(), Vec::new())));
+}
+
+#[test]
+fn the_avx512_build_of_the_binary_path_equals_the_portable_one_to_the_bit() {
+    if !super::has_avx512() {
+        eprintln!("this CPU has no AVX-512: only the portable path runs here");
+        return;
+    }
+    let mut t = table(4, 3000);
+    for l in t.losses.iter_mut() {
+        *l = f64::from(*l >= 0.5);
+    }
+    let theta = 0.15;
+    let scan = Scanner::new(&t, None, 2);
+    let excess: Vec<f64> = t.losses.iter().map(|l| l - theta).collect();
+    let high = 1.0 - theta;
+    let portable = super::uniform_binary_with(
+        &scan,
+        &excess,
+        high,
+        theta,
+        130,
+        0.05,
+        &mut Seeded::new(2),
+        super::count_bits_portable,
+    );
+    // SAFETY: AVX-512 checked above.
+    let fast = unsafe { super::uniform_binary_avx512(&scan, &excess, high, theta, 130, 0.05, &mut Seeded::new(2)) };
+    assert_eq!(portable.rademacher.to_bits(), fast.rademacher.to_bits());
+    assert_eq!(portable.deviation.to_bits(), fast.deviation.to_bits());
+}
+
+#[test]
+fn short_string_equality_is_equality() {
+    let words =
+        ["", "a", "ab", "abcdefgh", "abcdefghijklmnop", "abcdefghijklmnoq", "abcdefghijklmnopq", "é", "e\u{301}"];
+    for a in words {
+        for b in words {
+            assert_eq!(super::same_str(a, b), a == b, "{a:?} {b:?}");
+        }
+    }
 }
