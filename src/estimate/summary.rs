@@ -73,6 +73,10 @@ impl LossSummary {
     pub fn mean(&self) -> f64 {
         self.mean_scaled() * self.loss_max
     }
+    /// Sum of the losses in their own units (compensated: k errors of 0-1 loss give exactly k).
+    pub fn sum(&self) -> f64 {
+        (self.sum + self.compensation) * self.loss_max
+    }
     /// Mean of the losses scaled to [0, 1].
     pub fn mean_scaled(&self) -> f64 {
         if self.n == 0 {

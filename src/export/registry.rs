@@ -35,6 +35,7 @@ pub mod names {
     pub const LOWER: &str = "riskbound_risk_lower_bound";
     pub const OBSERVED: &str = "riskbound_risk_observed";
     pub const SAMPLES: &str = "riskbound_window_samples";
+    pub const LOSS_SUM: &str = "riskbound_window_loss_sum";
     pub const CONFIDENCE: &str = "riskbound_bound_confidence_ratio";
     pub const SLA_MAX: &str = "riskbound_sla_max_risk";
     pub const SLA_STATE: &str = "riskbound_sla_state";
@@ -156,6 +157,12 @@ impl Collector for SnapshotCollector {
             per_window(&|w| w.mean, &|a| a.mean),
         )?;
         gauges(e, names::SAMPLES, "Labelled samples in the window", per_window(&|w| w.n as f64, &|a| a.n as f64))?;
+        gauges(
+            e,
+            names::LOSS_SUM,
+            "Sum of the window's losses (for 0-1 loss, its error count): checks against counts kept elsewhere",
+            per_window(&|w| w.loss_sum, &|a| a.mean * a.n as f64),
+        )?;
         let model = |m: &str| -> Labels { vec![("model", m.to_string())] };
         let mg = |m: &str, g: &str| -> Labels { vec![("model", m.to_string()), ("guarantee", g.to_string())] };
         gauges(
@@ -395,6 +402,7 @@ mod tests {
                 name: "w\"1".into(),
                 n: 3,
                 mean: 0.5,
+                loss_sum: 1.5,
                 bounds: vec![],
                 state: None,
                 slices: None,

@@ -99,6 +99,8 @@ pub struct WindowSnapshot {
     pub name: String,
     pub n: u64,
     pub mean: f64,
+    /// Σ of the window's losses (for 0-1 loss, its error count), exact where `mean · n` rounds.
+    pub loss_sum: f64,
     pub bounds: Vec<(Method, Bounds)>,
     /// `None` when the model has no SLA.
     pub state: Option<(SlaState, SlaReason)>,
@@ -316,6 +318,7 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
             name: w.name.clone(),
             n: summary.n(),
             mean: summary.mean(),
+            loss_sum: summary.sum(),
             bounds,
             state,
             slices,
