@@ -131,6 +131,8 @@ struct Joins {
     expired: u64,
     /// The expiry cutoff before this file: every prediction older than it is decided.
     expired_to: i64,
+    /// The samples it stored, keyed as in [`KeptSamples`].
+    kept: Vec<((i64, i64), Kept)>,
 }
 
 /// The counters of one model, as exported.
@@ -162,9 +164,24 @@ pub struct Batch<'a> {
     pub mtime_ns: Option<i64>,
 }
 
+/// A kept sample as the windows read it: its loss and its slice features (stored JSON).
+#[derive(Clone, Debug)]
+struct Kept {
+    loss: f64,
+    features: Option<String>,
+}
+
+/// One model's kept samples by (t_pred, seq): the order the windows cut them in.
+type KeptSamples = BTreeMap<(i64, i64), Kept>;
+
 /// The durable state.
 pub struct Store {
     conn: Connection,
+    /// Each model's kept samples, read from the database the first time a window needs them and
+    /// then kept in step with it after every commit (the same inserts, the same pruning), so a
+    /// publish cuts its windows from memory instead of reading them back from SQLite: with a
+    /// window of millions of samples that read took seconds, once a second.
+    kept: std::cell::RefCell<std::collections::HashMap<String, KeptSamples>>,
 }
 
 const SCHEMA: &str = "
@@ -313,7 +330,7 @@ impl Store {
         conn.pragma_update(None, "temp_store", "MEMORY")?;
         conn.execute_batch(SCHEMA)?;
         migrate(&mut conn)?;
-        Ok(Store { conn })
+        Ok(Store { conn, kept: Default::default() })
     }
 
     /// The committed state of `dir`, for reading only: what /metrics shows while the volume
@@ -345,7 +362,7 @@ impl Store {
             let uri = format!("file:{escaped}?immutable=1");
             Connection::open_with_flags(uri, flags).ok().filter(|c| readable(c).is_ok())
         })?;
-        Some(Store { conn })
+        Some(Store { conn, kept: Default::default() })
     }
 
     /// A database in memory, for tests and fuzzing: the same schema and logic, no durability.
@@ -353,7 +370,7 @@ impl Store {
         let mut conn = Connection::open_in_memory()?;
         conn.execute_batch(SCHEMA)?;
         migrate(&mut conn)?;
-        Ok(Store { conn })
+        Ok(Store { conn, kept: Default::default() })
     }
 
     /// True when a file of this name, size and mtime was taken: after a restart the spool is not
@@ -523,9 +540,16 @@ impl Store {
                 if expired_to == i64::MIN { None } else { Some(expired_to) }
             ],
         )?;
-        Self::prune_samples(&tx, model)?;
+        let keep_from = Self::prune_samples(&tx, model)?;
         out.tracker_restarted = Self::advance_tracker(&tx, model, &joins.losses, now_ms)?;
         tx.commit()?;
+        // Only once the commit stands: the samples in memory never run ahead of the database.
+        if let Some(kept) = self.kept.get_mut().get_mut(m) {
+            kept.extend(joins.kept);
+            if keep_from > i64::MIN {
+                *kept = kept.split_off(&(keep_from, i64::MIN));
+            }
+        }
         Ok(out)
     }
 
@@ -535,6 +559,8 @@ impl Store {
             "INSERT INTO sample (model, id, t_pred, t_label, loss, features) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
         )?
         .execute(params![model, id, t_pred, t_label, loss, features])?;
+        let kept = Kept { loss, features: features.map(str::to_string) };
+        joins.kept.push(((t_pred, tx.last_insert_rowid()), kept));
         joins.delays.push(((t_label - t_pred).max(0) as f64) / 1000.0);
         joins.losses.push(loss);
         Ok(())
@@ -762,10 +788,11 @@ impl Store {
 
     /// Deletes samples that no window can reach any more: older than the largest span behind
     /// the newest sample and not among the newest `last` samples of the largest count window.
-    fn prune_samples(tx: &Connection, model: &ModelConfig) -> rusqlite::Result<()> {
+    /// Returns the cutoff: samples with t_pred below it were deleted (`i64::MIN`: none).
+    fn prune_samples(tx: &Connection, model: &ModelConfig) -> rusqlite::Result<i64> {
         let m = model.name.as_str();
         let newest: Option<i64> = tx.query_row("SELECT MAX(t_pred) FROM sample WHERE model = ?1", [m], |r| r.get(0))?;
-        let Some(newest) = newest else { return Ok(()) };
+        let Some(newest) = newest else { return Ok(i64::MIN) };
         let count = Self::sample_count(tx, m)?;
         let mut keep_from = i64::MAX;
         for w in &model.windows {
@@ -787,7 +814,7 @@ impl Store {
         let deleted =
             tx.prepare_cached("DELETE FROM sample WHERE model = ?1 AND t_pred < ?2")?.execute(params![m, keep_from])?;
         bump(tx, m, "samples_kept", -(deleted as f64))?;
-        Ok(())
+        Ok(keep_from)
     }
 
     /// Samples currently kept for a model (a counter, because COUNT(*) scans the table).
@@ -812,26 +839,34 @@ impl Store {
     /// The losses of one window with their slice features (the stored JSON parsed; `None` for
     /// rows stored without features, before slices were configured), in arrival order.
     pub fn window_rows(&self, model: &str, kind: WindowKind) -> Result<Vec<WindowRow>, StoreError> {
-        let (sql, arg) = match kind {
-            WindowKind::Last(n) => (
-                "SELECT loss, features FROM (SELECT seq, loss, features FROM sample WHERE model = ?1
-                 ORDER BY t_pred DESC, seq DESC LIMIT ?2) ORDER BY seq",
-                n.min(i64::MAX as u64) as i64,
-            ),
-            WindowKind::SpanMs(ms) => (
-                "SELECT loss, features FROM sample WHERE model = ?1
-                 AND t_pred >= (SELECT MAX(t_pred) FROM sample WHERE model = ?1) - ?2 ORDER BY seq",
-                ms,
-            ),
-        };
-        let mut st = self.conn.prepare_cached(sql)?;
-        let rows = st.query_map(params![model, arg], |r| Ok((r.get::<_, f64>(0)?, r.get::<_, Option<String>>(1)?)))?;
-        let mut out = Vec::new();
-        for row in rows {
-            let (loss, features) = row?;
-            out.push((loss, features.and_then(|f| serde_json::from_str::<Vec<String>>(&f).ok())));
+        let mut all = self.kept.borrow_mut();
+        if !all.contains_key(model) {
+            let mut st = self.conn.prepare_cached("SELECT t_pred, seq, loss, features FROM sample WHERE model = ?1")?;
+            let rows = st.query_map([model], |r| {
+                Ok(((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?), Kept { loss: r.get(2)?, features: r.get(3)? }))
+            })?;
+            let mut kept = KeptSamples::new();
+            for row in rows {
+                let (k, v) = row?;
+                kept.insert(k, v);
+            }
+            all.insert(model.to_string(), kept);
         }
-        Ok(out)
+        let kept = &all[model];
+        // The newest `n` by (t_pred, seq), or every sample within the span of the newest t_pred.
+        let mut picked: Vec<(&(i64, i64), &Kept)> = match kind {
+            WindowKind::Last(n) => kept.iter().rev().take(n.min(usize::MAX as u64) as usize).collect(),
+            WindowKind::SpanMs(ms) => match kept.last_key_value() {
+                Some((&(newest, _), _)) => kept.range((newest.saturating_sub(ms), i64::MIN)..).collect(),
+                None => Vec::new(),
+            },
+        };
+        // Arrival order, as betting needs: seq is the order samples were stored in.
+        picked.sort_unstable_by_key(|(k, _)| k.1);
+        Ok(picked
+            .into_iter()
+            .map(|(_, v)| (v.loss, v.features.as_deref().and_then(|f| serde_json::from_str::<Vec<String>>(f).ok())))
+            .collect())
     }
 
     /// Predictions still waiting for a label.
