@@ -158,22 +158,75 @@ fn total_order_key(v: f64) -> u64 {
     }
 }
 
-/// Codes strings densely in order of first appearance: (code of each, the distinct strings).
-/// A seeded multiply-xor hash over 8-byte words and an open-addressing table that starts in L1
-/// cache: a few ns a row, where std's SipHash map costs ~15. `None` when probes run long (keys
-/// built to collide with the seed they cannot see should not occur; if they do, the caller
-/// codes with SipHash instead, so hostile values cost time linear in the rows either way).
-/// Codes do not depend on the seed.
-fn code_strings<'a>(values: impl Iterator<Item = &'a str> + Clone) -> Option<(Vec<u32>, Vec<String>)> {
-    use std::hash::BuildHasher;
+/// Codes items densely in order of first appearance: (code of each, the distinct items), with
+/// an open-addressing table (linear probing) that starts at 2^`bits` slots, in L1 cache, and
+/// doubles at a quarter load so clusters stay short. `None` when more than `limit` items are
+/// distinct, or when a probe runs past 64 slots (items built to collide): callers then take a
+/// path whose cost no input can inflate, so hostile values cost time linear in the rows.
+/// Codes depend only on the order of the items, never on the hash.
+fn dense_codes<K: Copy>(
+    items: impl Iterator<Item = K>,
+    hash: impl Fn(K) -> u64,
+    same: impl Fn(K, K) -> bool,
+    limit: usize,
+    mut bits: u32,
+) -> Option<(Vec<u32>, Vec<K>)> {
     const EMPTY: u32 = u32::MAX;
     const MAX_PROBE: usize = 64;
+    let mut slots = vec![(0u64, EMPTY); 1 << bits]; // (hash, code)
+    let mut distinct: Vec<(K, u64)> = Vec::new();
+    let mut codes = Vec::with_capacity(items.size_hint().0);
+    for k in items {
+        let hk = hash(k);
+        let mask = (1usize << bits) - 1;
+        let mut at = (hk >> (64 - bits)) as usize;
+        let mut probes = 0;
+        let code = loop {
+            let (sh, code) = slots[at];
+            if code == EMPTY {
+                if distinct.len() >= limit {
+                    return None;
+                }
+                slots[at] = (hk, distinct.len() as u32);
+                distinct.push((k, hk));
+                break distinct.len() as u32 - 1;
+            }
+            if sh == hk && same(distinct[code as usize].0, k) {
+                break code;
+            }
+            probes += 1;
+            if probes > MAX_PROBE {
+                return None;
+            }
+            at = (at + 1) & mask;
+        };
+        codes.push(code);
+        if 4 * distinct.len() > 1 << bits {
+            bits += 1;
+            let mask = (1usize << bits) - 1;
+            slots = vec![(0u64, EMPTY); 1 << bits];
+            for (code, &(_, hk)) in distinct.iter().enumerate() {
+                let mut at = (hk >> (64 - bits)) as usize;
+                while slots[at].1 != EMPTY {
+                    at = (at + 1) & mask;
+                }
+                slots[at] = (hk, code as u32);
+            }
+        }
+    }
+    Some((codes, distinct.into_iter().map(|(k, _)| k).collect()))
+}
+
+/// Codes strings densely in order of first appearance: (code of each, the distinct strings),
+/// through [`dense_codes`] with a seeded multiply-xor hash over 8-byte words: a few ns a row,
+/// where std's SipHash map costs ~15. `None` as there (the caller then codes with SipHash).
+fn code_strings<'a>(values: impl Iterator<Item = &'a str>) -> Option<(Vec<u32>, Vec<String>)> {
+    use std::hash::BuildHasher;
     thread_local!(static SEED: u64 = std::collections::hash_map::RandomState::new().hash_one(0x5eed_u64));
     let seed = SEED.with(|s| *s);
     let hash = |v: &str| -> u64 {
         let mut h = seed ^ v.len() as u64;
-        let b = v.as_bytes();
-        let mut chunks = b.chunks_exact(8);
+        let mut chunks = v.as_bytes().chunks_exact(8);
         for c in &mut chunks {
             h = (h.rotate_left(5) ^ u64::from_le_bytes(c.try_into().expect("8 bytes")))
                 .wrapping_mul(0x9E37_79B9_7F4A_7C15);
@@ -188,47 +241,7 @@ fn code_strings<'a>(values: impl Iterator<Item = &'a str> + Clone) -> Option<(Ve
         h = h.wrapping_mul(0xC4CE_B9FE_1A85_EC53);
         h ^ (h >> 33)
     };
-    let mut bits = 6u32;
-    let mut slots = vec![(0u64, EMPTY); 1 << bits]; // (hash, code)
-    let mut names: Vec<&str> = Vec::new();
-    let mut hashes: Vec<u64> = Vec::new();
-    let mut codes = Vec::new();
-    for v in values {
-        let hv = hash(v);
-        let mask = (1usize << bits) - 1;
-        let mut at = (hv >> (64 - bits)) as usize;
-        let mut probes = 0;
-        let code = loop {
-            let (sh, code) = slots[at];
-            if code == EMPTY {
-                slots[at] = (hv, names.len() as u32);
-                names.push(v);
-                hashes.push(hv);
-                break names.len() as u32 - 1;
-            }
-            if sh == hv && same_str(names[code as usize], v) {
-                break code;
-            }
-            probes += 1;
-            if probes > MAX_PROBE {
-                return None;
-            }
-            at = (at + 1) & mask;
-        };
-        codes.push(code);
-        if 4 * names.len() > 1 << bits {
-            bits += 1;
-            let mask = (1usize << bits) - 1;
-            slots = vec![(0u64, EMPTY); 1 << bits];
-            for (code, &hv) in hashes.iter().enumerate() {
-                let mut at = (hv >> (64 - bits)) as usize;
-                while slots[at].1 != EMPTY {
-                    at = (at + 1) & mask;
-                }
-                slots[at] = (hv, code as u32);
-            }
-        }
-    }
+    let (codes, names) = dense_codes(values, hash, same_str, usize::MAX, 6)?;
     Some((codes, names.into_iter().map(str::to_string).collect()))
 }
 
@@ -302,58 +315,19 @@ fn radix_sorted(mut a: Vec<(u64, u32)>) -> Vec<(u64, u32)> {
 }
 
 /// The stable sort of [`radix_sorted`] for the common case of heavily tied values (rounded
-/// amounts, small integers): the distinct keys are found with a hash table, sorted among
+/// amounts, small integers): the distinct keys are found with [`dense_codes`], sorted among
 /// themselves, and the rows dealt into them by a counting sort, O(n) in all. `None` when more
 /// than n/8 keys are distinct, or when the table's probes run long (keys chosen to collide):
 /// the radix sort is then the better tool, and its time does not depend on the keys.
 fn sorted_few_distinct(keys: &[u64]) -> Option<Vec<(u64, u32)>> {
-    const EMPTY: u32 = u32::MAX;
-    const MAX_PROBE: usize = 64;
-    let limit = keys.len() / 8;
-    // The table starts small (in L1 cache) and doubles at a quarter load (linear probing: clusters stay short).
-    let mut bits = 10u32;
-    let mut slot_of = vec![EMPTY; 1 << bits]; // index into `uniq`
-    let mut uniq: Vec<u64> = Vec::new();
-    let mut rank_of_row = Vec::with_capacity(keys.len());
-    let hash = |k: u64, bits: u32| (k.wrapping_mul(0x9E37_79B9_7F4A_7C15) >> (64 - bits)) as usize;
-    for &k in keys {
-        // Multiply-shift hashing (Fibonacci), linear probing.
-        let mask = (1usize << bits) - 1;
-        let mut h = hash(k, bits);
-        let mut probes = 0;
-        let u = loop {
-            let at = slot_of[h];
-            if at == EMPTY {
-                if uniq.len() >= limit {
-                    return None;
-                }
-                slot_of[h] = uniq.len() as u32;
-                uniq.push(k);
-                break uniq.len() as u32 - 1;
-            }
-            if uniq[at as usize] == k {
-                break at;
-            }
-            probes += 1;
-            if probes > MAX_PROBE {
-                return None;
-            }
-            h = (h + 1) & mask;
-        };
-        rank_of_row.push(u);
-        if 4 * uniq.len() > 1 << bits {
-            bits += 1;
-            let mask = (1usize << bits) - 1;
-            slot_of = vec![EMPTY; 1 << bits];
-            for (u, &k) in uniq.iter().enumerate() {
-                let mut h = hash(k, bits);
-                while slot_of[h] != EMPTY {
-                    h = (h + 1) & mask;
-                }
-                slot_of[h] = u as u32;
-            }
-        }
-    }
+    // Multiply-shift (Fibonacci) hashing: the table uses the product's top bits.
+    let (rank_of_row, uniq) = dense_codes(
+        keys.iter().copied(),
+        |k| k.wrapping_mul(0x9E37_79B9_7F4A_7C15),
+        |a, b| a == b,
+        keys.len() / 8,
+        10,
+    )?;
     // Rank the distinct keys, then count and place the rows (stable: rows in input order).
     let mut by_key: Vec<u32> = (0..uniq.len() as u32).collect();
     by_key.sort_unstable_by_key(|&u| uniq[u as usize]);
@@ -644,7 +618,7 @@ pub struct Uniform {
 /// feature's data sequentially and looks up only sign bits at random.
 pub fn uniform(scan: &Scanner, excess: &[f64], theta: f64, k: usize, delta: f64, rng: &mut Seeded) -> Uniform {
     if let Some(high) = two_valued(excess, theta) {
-        return uniform_binary(scan, excess, high, theta, k, delta, rng);
+        return uniform_binary(&Binary { scan, excess, high, theta, k, delta }, rng);
     }
     let n = scan.n() as f64;
     let c0 = 0.5 - theta; // centre of [−θ, 1 − θ]
@@ -892,21 +866,24 @@ impl Grouped {
 /// block are the bits of one word, so a pass over a feature's rows counts, per group and loss
 /// value, the rows with a + sign in every draw at once (see [`Grouped::sums`]) instead of
 /// adding 64 signed numbers per row.
-fn uniform_binary(
-    scan: &Scanner,
-    excess: &[f64],
+fn uniform_binary(job: &Binary<'_>, rng: &mut Seeded) -> Uniform {
+    #[cfg(target_arch = "x86_64")]
+    if has_avx512() {
+        // SAFETY: the CPU has the features the function is compiled for.
+        return unsafe { uniform_binary_avx512(job, rng) };
+    }
+    uniform_binary_with(job, rng, count_bits_portable)
+}
+
+/// What [`uniform_binary`] works on: the scanner's rows, their excess l − θ (each −θ or
+/// `high` = 1 − θ), and k draws at level δ.
+struct Binary<'a> {
+    scan: &'a Scanner,
+    excess: &'a [f64],
     high: f64,
     theta: f64,
     k: usize,
     delta: f64,
-    rng: &mut Seeded,
-) -> Uniform {
-    #[cfg(target_arch = "x86_64")]
-    if has_avx512() {
-        // SAFETY: the CPU has the features the function is compiled for.
-        return unsafe { uniform_binary_avx512(scan, excess, high, theta, k, delta, rng) };
-    }
-    uniform_binary_with(scan, excess, high, theta, k, delta, rng, count_bits_portable)
 }
 
 /// The same computation compiled for AVX-512, so the 64-draw loops over f64 (group sums,
@@ -914,30 +891,13 @@ fn uniform_binary(
 /// the portable build's to the bit (tested).
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f,avx512bw")]
-fn uniform_binary_avx512(
-    scan: &Scanner,
-    excess: &[f64],
-    high: f64,
-    theta: f64,
-    k: usize,
-    delta: f64,
-    rng: &mut Seeded,
-) -> Uniform {
-    uniform_binary_with(scan, excess, high, theta, k, delta, rng, count_bits_avx512)
+fn uniform_binary_avx512(job: &Binary<'_>, rng: &mut Seeded) -> Uniform {
+    uniform_binary_with(job, rng, count_bits_avx512)
 }
 
-#[allow(clippy::too_many_arguments)]
 #[inline(always)]
-fn uniform_binary_with(
-    scan: &Scanner,
-    excess: &[f64],
-    high: f64,
-    theta: f64,
-    k: usize,
-    delta: f64,
-    rng: &mut Seeded,
-    count: CountBits,
-) -> Uniform {
+fn uniform_binary_with(job: &Binary<'_>, rng: &mut Seeded, count: CountBits) -> Uniform {
+    let Binary { scan, excess, high, theta, k, delta } = *job;
     let n = scan.n();
     let nf = n as f64;
     let c0 = 0.5 - theta;

@@ -322,18 +322,10 @@ fn the_avx512_build_of_the_binary_path_equals_the_portable_one_to_the_bit() {
     let scan = Scanner::new(&t, None, 2);
     let excess: Vec<f64> = t.losses.iter().map(|l| l - theta).collect();
     let high = 1.0 - theta;
-    let portable = super::uniform_binary_with(
-        &scan,
-        &excess,
-        high,
-        theta,
-        130,
-        0.05,
-        &mut Seeded::new(2),
-        super::count_bits_portable,
-    );
+    let job = super::Binary { scan: &scan, excess: &excess, high, theta, k: 130, delta: 0.05 };
+    let portable = super::uniform_binary_with(&job, &mut Seeded::new(2), super::count_bits_portable);
     // SAFETY: AVX-512 checked above.
-    let fast = unsafe { super::uniform_binary_avx512(&scan, &excess, high, theta, 130, 0.05, &mut Seeded::new(2)) };
+    let fast = unsafe { super::uniform_binary_avx512(&job, &mut Seeded::new(2)) };
     assert_eq!(portable.rademacher.to_bits(), fast.rademacher.to_bits());
     assert_eq!(portable.deviation.to_bits(), fast.deviation.to_bits());
 }
