@@ -231,9 +231,9 @@ fn code_strings<'a>(values: impl Iterator<Item = &'a str>) -> Option<(Vec<u32>, 
             h = (h.rotate_left(5) ^ u64::from_le_bytes(c.try_into().expect("8 bytes")))
                 .wrapping_mul(0x9E37_79B9_7F4A_7C15);
         }
-        let mut last = [0u8; 8];
-        last[..chunks.remainder().len()].copy_from_slice(chunks.remainder());
-        h = (h.rotate_left(5) ^ u64::from_le_bytes(last)).wrapping_mul(0x9E37_79B9_7F4A_7C15);
+        // The last 0-7 bytes by a loop: copy_from_slice of a variable length is a memcpy call.
+        let last = chunks.remainder().iter().enumerate().fold(0u64, |w, (i, &c)| w | u64::from(c) << (8 * i));
+        h = (h.rotate_left(5) ^ last).wrapping_mul(0x9E37_79B9_7F4A_7C15);
         // MurmurHash3's 64-bit finaliser: every input bit reaches the top bits the table uses.
         h ^= h >> 33;
         h = h.wrapping_mul(0xFF51_AFD7_ED55_8CCD);
@@ -245,7 +245,8 @@ fn code_strings<'a>(values: impl Iterator<Item = &'a str>) -> Option<(Vec<u32>, 
     Some((codes, names.into_iter().map(str::to_string).collect()))
 }
 
-/// String equality without a call to memcmp for the short strings categories usually are.
+/// String equality without a call to memcmp for the short strings categories usually are
+/// (a byte loop; memcmp's call costs more than comparing a few bytes).
 #[inline]
 fn same_str(a: &str, b: &str) -> bool {
     let (a, b) = (a.as_bytes(), b.as_bytes());
@@ -253,10 +254,7 @@ fn same_str(a: &str, b: &str) -> bool {
         return false;
     }
     if a.len() <= 16 {
-        let (mut x, mut y) = ([0u8; 16], [0u8; 16]);
-        x[..a.len()].copy_from_slice(a);
-        y[..b.len()].copy_from_slice(b);
-        return u128::from_le_bytes(x) == u128::from_le_bytes(y);
+        return a.iter().zip(b).all(|(x, y)| x == y);
     }
     a == b
 }
@@ -314,39 +312,83 @@ fn radix_sorted(mut a: Vec<(u64, u32)>) -> Vec<(u64, u32)> {
     a
 }
 
-/// The stable sort of [`radix_sorted`] for the common case of heavily tied values (rounded
-/// amounts, small integers): the distinct keys are found with [`dense_codes`], sorted among
-/// themselves, and the rows dealt into them by a counting sort, O(n) in all. `None` when more
-/// than n/8 keys are distinct, or when the table's probes run long (keys chosen to collide):
-/// the radix sort is then the better tool, and its time does not depend on the keys.
-fn sorted_few_distinct(keys: &[u64]) -> Option<Vec<(u64, u32)>> {
+/// A numeric feature's index: positions in sorted order, where each run of equal values ends
+/// in it, and the distinct values (−0 and +0 are one value, as f64 equality has it).
+type NumGroups = (Vec<u32>, Vec<u32>, Vec<f64>);
+
+/// [`NumGroups`] from (key, position) pairs sorted by key.
+fn groups_of_sorted(sorted: &[(u64, u32)]) -> NumGroups {
+    let mut order = Vec::with_capacity(sorted.len());
+    let mut ends = Vec::new();
+    let mut uniq: Vec<f64> = Vec::new();
+    let mut last_key = None;
+    for (pos, &(k, p)) in sorted.iter().enumerate() {
+        if last_key != Some(k) {
+            last_key = Some(k);
+            let v = from_total_order_key(k);
+            if uniq.last() != Some(&v) {
+                if !uniq.is_empty() {
+                    ends.push(pos as u32);
+                }
+                uniq.push(v);
+            }
+        }
+        order.push(p);
+    }
+    if !uniq.is_empty() {
+        ends.push(sorted.len() as u32);
+    }
+    (order, ends, uniq)
+}
+
+/// [`NumGroups`] for the common case of heavily tied values (rounded amounts, small
+/// integers), equal to [`groups_of_sorted`] of the stable sort: the distinct keys are found
+/// with [`dense_codes`] and sorted among themselves, and the positions dealt into their groups
+/// by a counting sort, O(n) in all. `None` when more than n/8 keys are distinct, or when the
+/// table's probes run long (keys chosen to collide): the radix sort is then the better tool,
+/// and its time does not depend on the keys.
+fn few_distinct_groups(keys: &[u64]) -> Option<NumGroups> {
     // Multiply-shift (Fibonacci) hashing: the table uses the product's top bits.
-    let (rank_of_row, uniq) = dense_codes(
+    let (code_of_row, distinct) = dense_codes(
         keys.iter().copied(),
         |k| k.wrapping_mul(0x9E37_79B9_7F4A_7C15),
         |a, b| a == b,
         keys.len() / 8,
         10,
     )?;
-    // Rank the distinct keys, then count and place the rows (stable: rows in input order).
-    let mut by_key: Vec<u32> = (0..uniq.len() as u32).collect();
-    by_key.sort_unstable_by_key(|&u| uniq[u as usize]);
-    let mut start = vec![0usize; uniq.len()];
-    let mut counts = vec![0usize; uniq.len()];
-    for &u in &rank_of_row {
-        counts[u as usize] += 1;
+    let mut by_key: Vec<u32> = (0..distinct.len() as u32).collect();
+    by_key.sort_unstable_by_key(|&c| distinct[c as usize]);
+    // Positions are dealt by code in key order (so −0's rows come before +0's, as in the
+    // sort); a group ends where the value changes (−0 and +0 are one group).
+    let mut rank_of = vec![0u32; distinct.len()];
+    for (r, &c) in by_key.iter().enumerate() {
+        rank_of[c as usize] = r as u32;
     }
-    let mut sum = 0;
-    for &u in &by_key {
-        start[u as usize] = sum;
-        sum += counts[u as usize];
+    let mut next = vec![0u32; distinct.len() + 1];
+    for &c in &code_of_row {
+        next[rank_of[c as usize] as usize + 1] += 1;
     }
-    let mut out = vec![(0u64, 0u32); keys.len()];
-    for (p, &u) in rank_of_row.iter().enumerate() {
-        out[start[u as usize]] = (uniq[u as usize], p as u32);
-        start[u as usize] += 1;
+    for r in 1..next.len() {
+        next[r] += next[r - 1];
     }
-    Some(out)
+    let mut values: Vec<f64> = Vec::new();
+    let mut ends: Vec<u32> = Vec::new();
+    for (r, &c) in by_key.iter().enumerate() {
+        let v = from_total_order_key(distinct[c as usize]);
+        if values.last() == Some(&v) {
+            *ends.last_mut().expect("a group before") = next[r + 1];
+        } else {
+            values.push(v);
+            ends.push(next[r + 1]);
+        }
+    }
+    let mut order = vec![0u32; keys.len()];
+    for (p, &c) in code_of_row.iter().enumerate() {
+        let slot = &mut next[rank_of[c as usize] as usize];
+        order[*slot as usize] = p as u32;
+        *slot += 1;
+    }
+    Some((order, ends, values))
 }
 
 impl Scanner {
@@ -403,32 +445,9 @@ impl Scanner {
         let mut nums = Vec::new();
         for (name, values) in &t.numeric {
             let keys: Vec<u64> = rows.iter().map(|&r| total_order_key(values[r as usize])).collect();
-            let sorted = match sorted_few_distinct(&keys) {
-                Some(s) => s,
-                None => radix_sorted(keys.iter().zip(0u32..).map(|(&k, p)| (k, p)).collect()),
-            };
-            // One pass: the order, and where each run of equal values ends (−0 and +0 are
-            // one value, as f64 equality has it).
-            let mut order = Vec::with_capacity(sorted.len());
-            let mut ends = Vec::new();
-            let mut uniq: Vec<f64> = Vec::new();
-            let mut last_key = None;
-            for (pos, &(k, p)) in sorted.iter().enumerate() {
-                if last_key != Some(k) {
-                    last_key = Some(k);
-                    let v = from_total_order_key(k);
-                    if uniq.last() != Some(&v) {
-                        if !uniq.is_empty() {
-                            ends.push(pos as u32);
-                        }
-                        uniq.push(v);
-                    }
-                }
-                order.push(p);
-            }
-            if !uniq.is_empty() {
-                ends.push(sorted.len() as u32);
-            }
+            let (order, ends, uniq) = few_distinct_groups(&keys).unwrap_or_else(|| {
+                groups_of_sorted(&radix_sorted(keys.iter().zip(0u32..).map(|(&k, p)| (k, p)).collect()))
+            });
             nums.push(NumIndex { name: name.clone(), order, ends, values: uniq });
         }
         Scanner { n: rows.len(), cats, nums }

@@ -274,10 +274,16 @@ fn the_tied_value_sort_equals_the_radix_sort_or_declines() {
     // Few distinct values: taken by the hash path, same result as the radix sort.
     let keys: Vec<u64> = (0..20_000).map(|_| super::total_order_key((r.next_u64() % 300) as f64 / 10.0)).collect();
     let pairs: Vec<(u64, u32)> = keys.iter().zip(0u32..).map(|(&k, p)| (k, p)).collect();
-    assert_eq!(super::sorted_few_distinct(&keys), Some(super::radix_sorted(pairs)));
+    assert_eq!(super::few_distinct_groups(&keys), Some(super::groups_of_sorted(&super::radix_sorted(pairs))));
+    // −0 and +0 are one value on both paths.
+    let keys: Vec<u64> = (0..800).map(|i| super::total_order_key([0.0, -0.0, 1.5, -2.0][i % 4])).collect();
+    let pairs: Vec<(u64, u32)> = keys.iter().zip(0u32..).map(|(&k, p)| (k, p)).collect();
+    let few = super::few_distinct_groups(&keys).unwrap();
+    assert_eq!(few, super::groups_of_sorted(&super::radix_sorted(pairs)));
+    assert_eq!(few.2, vec![-2.0, 0.0, 1.5]);
     // Mostly distinct values: declined.
     let keys: Vec<u64> = (0..20_000).map(|_| r.next_u64()).collect();
-    assert_eq!(super::sorted_few_distinct(&keys), None);
+    assert_eq!(super::few_distinct_groups(&keys), None);
     // Keys built to collide under the multiply-shift hash: 200 distinct keys (few enough for
     // the hash path) that all land in slot 0, declined after a bounded probe.
     let n = 16_000usize;
@@ -291,7 +297,7 @@ fn the_tied_value_sort_equals_the_radix_sort_or_declines() {
     let distinct: Vec<u64> = (1..=200u64).map(|j| j.wrapping_mul(inv)).collect();
     assert!(distinct.iter().all(|&k| k.wrapping_mul(a) >> (64 - bits) == 0));
     let keys: Vec<u64> = (0..n).map(|i| distinct[i % 200]).collect();
-    assert_eq!(super::sorted_few_distinct(&keys), None);
+    assert_eq!(super::few_distinct_groups(&keys), None);
 }
 
 #[test]
