@@ -225,8 +225,11 @@ pub fn run<R: Read>(plan: &Plan, src: R, timings: bool) -> Result<Value, DecodeE
         "uniform": {
             "rademacher": report.uniform.rademacher * b,
             "sign_draws": report.uniform.sign_draws,
-            "deviation": report.uniform.deviation * b,
+            "deviation": report.deviation * b,
             "delta": report.uniform_delta,
+            "mcdiarmid_deviation": report.uniform.deviation * b,
+            "variance_sensitive_deviation": report.variance_deviation * b,
+            "form": if report.variance_deviation < report.uniform.deviation { "variance-sensitive" } else { "mcdiarmid" },
         },
         "split_confirm": {"delta": report.split_delta, "slices_confirmed": report.confirmed,
                           "delta_per_slice": report.split_delta / report.confirmed.max(1) as f64},

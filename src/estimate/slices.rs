@@ -705,6 +705,36 @@ pub fn uniform(scan: &Scanner, excess: &[f64], theta: f64, k: usize, delta: f64,
     Uniform { rademacher, sign_draws: k, deviation }
 }
 
+/// ε of the variance-sensitive uniform bound (METHODS.md §3.3: Bousquet's inequality for the
+/// supremum, the self-bounding lower tail for the Rademacher average; BBM 2005, Thm 2.1 has the
+/// same form) for the class {(l − θ)·1_S} (range width D = 1) on n rows, at level δ: with
+/// probability ≥ 1 − δ, for every slice S, P g_S ≥ P_n g_S − ε. δ is spent as 2e^{−x} = δ/2 on
+/// the two tails, δ/4 on replacing R_n by the k-draw average R̃_k (McDiarmid in the signs:
+/// R_n ≤ R̃_k + sqrt(ln(4/δ)/(2nk))), and δ/4 on the kl upper bound μ⁺ of the window's mean
+/// loss, which bounds every variance: Var g_S ≤ E(l − θ)² ≤ θ² + (1 − 2θ) μ for θ ≤ ½ (l² ≤ l),
+/// ≤ θ² otherwise, and ≤ ¼ always. The bound holds for all α in (0, 1) at once, so the
+/// smallest over a grid of α is taken:
+///   ε = 2(1+α)/(1−α) R + sqrt(2σ²x/n) + (1/3 + 1/α + (1+α)/(2α(1−α))) x/n.
+/// Tighter than Theorem U1 when σ² ≪ ¼ and n is large; looser with one sign draw.
+pub fn variance_sensitive(u: &Uniform, n: usize, theta: f64, mean: f64, delta: f64) -> f64 {
+    if n == 0 {
+        return f64::INFINITY;
+    }
+    let nf = n as f64;
+    let x = (4.0 / delta).ln();
+    let r = u.rademacher.max(0.0) + ((4.0 / delta).ln() / (2.0 * nf * u.sign_draws.max(1) as f64)).sqrt();
+    let mu = super::kl::bounds(n as u64, mean.clamp(0.0, 1.0), delta / 4.0).upper;
+    let sigma2 = if theta <= 0.5 { theta * theta + (1.0 - 2.0 * theta) * mu } else { theta * theta }.min(0.25);
+    (1..100)
+        .map(|i| {
+            let a = f64::from(i) / 100.0;
+            2.0 * (1.0 + a) / (1.0 - a) * r
+                + (2.0 * sigma2 * x / nf).sqrt()
+                + (1.0 / 3.0 + 1.0 / a + (1.0 + a) / (2.0 * a * (1.0 - a))) * x / nf
+        })
+        .fold(f64::INFINITY, f64::min)
+}
+
 /// `Some(1 − θ)` when every excess is −θ or 1 − θ (0-1 losses): the case the bit-sliced path
 /// handles.
 fn two_valued(excess: &[f64], theta: f64) -> Option<f64> {
@@ -1087,7 +1117,13 @@ pub struct SliceReport {
 #[derive(Clone, Debug)]
 pub struct Report {
     pub n: usize,
+    /// Theorem U1 at half the uniform δ.
     pub uniform: Uniform,
+    /// ε of the variance-sensitive form (METHODS.md §3.3) at the other half.
+    pub variance_deviation: f64,
+    /// The ε applied to every slice: the smaller of the two (each at half the uniform δ, so
+    /// taking the smaller after seeing both is valid by the union bound).
+    pub deviation: f64,
     pub localized: Localized,
     /// δ of each certificate: split-confirm spends `split_delta / confirmed` per slice.
     pub split_delta: f64,
@@ -1118,7 +1154,10 @@ pub fn analyze(t: &Table, plan: &Plan) -> Report {
 
     let scan = Scanner::new(t, None, plan.depth);
     let excess: Vec<f64> = t.losses.iter().map(|&l| l - plan.theta).collect();
-    let uniform = uniform(&scan, &excess, plan.theta, plan.sign_draws.max(1), uniform_delta, &mut rng);
+    let uniform = uniform(&scan, &excess, plan.theta, plan.sign_draws.max(1), uniform_delta / 2.0, &mut rng);
+    let mean = t.losses.iter().sum::<f64>() / n.max(1) as f64;
+    let variance_deviation = variance_sensitive(&uniform, n, plan.theta, mean, uniform_delta / 2.0);
+    let deviation = uniform.deviation.min(variance_deviation);
     let localized = localized(&scan, &excess, plan.delta, &mut rng);
 
     // Report what either route found: the split's discoveries and the full window's worst.
@@ -1135,11 +1174,8 @@ pub fn analyze(t: &Table, plan: &Plan) -> Report {
             let sum: f64 = members.iter().map(|&r| t.losses[r]).sum();
             let n_s = members.len();
             let scan_stat = (sum - plan.theta * n_s as f64) / n as f64;
-            let uniform_lower = if scan_stat - uniform.deviation > 0.0 {
-                (plan.theta + scan_stat - uniform.deviation).min(1.0)
-            } else {
-                0.0
-            };
+            let uniform_lower =
+                if scan_stat - deviation > 0.0 { (plan.theta + scan_stat - deviation).min(1.0) } else { 0.0 };
             let (mut lower, mut upper, mut by) = (uniform_lower, 1.0, "uniform");
             if split_found {
                 let held: Vec<f64> = half_b
@@ -1165,7 +1201,17 @@ pub fn analyze(t: &Table, plan: &Plan) -> Report {
         .collect();
     reports.sort_by(|a, b| b.lower.total_cmp(&a.lower).then(b.mean.total_cmp(&a.mean)));
     reports.truncate(plan.top);
-    Report { n, uniform, localized, split_delta, confirmed, uniform_delta, slices: reports }
+    Report {
+        n,
+        uniform,
+        variance_deviation,
+        deviation,
+        localized,
+        split_delta,
+        confirmed,
+        uniform_delta,
+        slices: reports,
+    }
 }
 
 /// The uniform bound over a re-tuned decision threshold (METHODS.md §3.4 a): the classifier

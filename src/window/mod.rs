@@ -210,7 +210,7 @@ pub fn slice_snapshot(
         })
         .collect();
     let violations = top.iter().chain(&registered).filter(|s| s.violates).count() as u64;
-    Some(SliceSnapshot { top, registered, uniform_deviation: report.uniform.deviation * b, violations })
+    Some(SliceSnapshot { top, registered, uniform_deviation: report.deviation * b, violations })
 }
 
 /// One model's numbers.

@@ -346,3 +346,30 @@ fn short_string_equality_is_equality() {
         }
     }
 }
+
+#[test]
+fn the_variance_sensitive_deviation_is_the_stated_formula() {
+    // METHODS.md §3.3 evaluated independently on a fine grid of α, with the δ split written
+    // out: x = ln(4/δ) (2e^{−x} = δ/2), R = R̃ + sqrt(ln(4/δ)/(2nk)), μ⁺ the kl upper bound at δ/4.
+    let (n, k, theta, mean, delta) = (20_000usize, 50usize, 0.15, 0.09, 0.025);
+    let u = Uniform { rademacher: 0.004, sign_draws: k, deviation: 0.0 };
+    let got = super::variance_sensitive(&u, n, theta, mean, delta);
+    let nf = n as f64;
+    let x = (4.0 / delta).ln();
+    let r = 0.004 + ((4.0 / delta).ln() / (2.0 * nf * k as f64)).sqrt();
+    let mu = crate::estimate::kl::bounds(n as u64, mean, delta / 4.0).upper;
+    assert!(mu > mean && mu < mean + 0.01);
+    let s2 = theta * theta + (1.0 - 2.0 * theta) * mu;
+    let fine = (1..10_000)
+        .map(|i| {
+            let a = i as f64 / 10_000.0;
+            2.0 * (1.0 + a) / (1.0 - a) * r
+                + (2.0 * s2 * x / nf).sqrt()
+                + (1.0 / 3.0 + 1.0 / a + (1.0 + a) / (2.0 * a * (1.0 - a))) * x / nf
+        })
+        .fold(f64::INFINITY, f64::min);
+    assert!(got >= fine - 1e-15 && got <= fine * 1.01, "{got} vs {fine}");
+    // With a small variance and many rows it beats Theorem U1 at the same δ.
+    let u1 = 2.0 * 0.004 + ((9.0 + 4.0 / k as f64) * (1.0 / delta).ln() / (2.0 * nf)).sqrt();
+    assert!(got < u1, "{got} vs {u1}");
+}
