@@ -84,10 +84,10 @@ fn check_against_oracle(m: &Metrics, oracle: &Oracle) {
     let w = |name: &str, win: &str| m.get(name, &[("model", "crash"), ("window", win)]).unwrap();
     assert_eq!(w("riskbound_window_samples", "all"), all_n, "n of window all");
     assert_eq!((w("riskbound_risk_observed", "all") * all_n).round(), all_err, "errors (= loss sum) of window all");
-    assert_eq!(w("riskbound_window_loss_sum", "all"), all_err, "the exported loss sum, exactly");
+    assert_eq!(w("riskbound_window_total_loss", "all"), all_err, "the exported loss sum, exactly");
     assert_eq!(w("riskbound_window_samples", "recent"), recent.len() as f64, "n of window recent");
     let recent_err: f64 = recent.iter().sum();
-    assert_eq!(w("riskbound_window_loss_sum", "recent"), recent_err, "the exported loss sum of window recent");
+    assert_eq!(w("riskbound_window_total_loss", "recent"), recent_err, "the exported loss sum of window recent");
     assert_eq!(
         (w("riskbound_risk_observed", "recent") * recent.len() as f64).round(),
         recent_err,

@@ -25,7 +25,7 @@ from prometheus_client.parser import text_string_to_metric_families
 fams = list(text_string_to_metric_families(open(sys.argv[1]).read()))
 names = {f.name for f in fams}
 need = {"riskbound_risk_upper_bound", "riskbound_risk_lower_bound", "riskbound_risk_observed",
-        "riskbound_window_samples", "riskbound_window_loss_sum", "riskbound_sla_max_risk", "riskbound_sla_state",
+        "riskbound_window_samples", "riskbound_window_total_loss", "riskbound_sla_max_risk", "riskbound_sla_state",
         "riskbound_rows_ingested", "riskbound_rows_rejected", "riskbound_files_ingested",
         "riskbound_predictions_awaiting_label", "riskbound_label_delay_seconds",
         "riskbound_last_ingest_timestamp_seconds", "riskbound_build_info",

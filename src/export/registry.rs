@@ -35,7 +35,7 @@ pub mod names {
     pub const LOWER: &str = "riskbound_risk_lower_bound";
     pub const OBSERVED: &str = "riskbound_risk_observed";
     pub const SAMPLES: &str = "riskbound_window_samples";
-    pub const LOSS_SUM: &str = "riskbound_window_loss_sum";
+    pub const TOTAL_LOSS: &str = "riskbound_window_total_loss";
     pub const CONFIDENCE: &str = "riskbound_bound_confidence_ratio";
     pub const SLA_MAX: &str = "riskbound_sla_max_risk";
     pub const SLA_STATE: &str = "riskbound_sla_state";
@@ -159,7 +159,7 @@ impl Collector for SnapshotCollector {
         gauges(e, names::SAMPLES, "Labelled samples in the window", per_window(&|w| w.n as f64, &|a| a.n as f64))?;
         gauges(
             e,
-            names::LOSS_SUM,
+            names::TOTAL_LOSS,
             "Sum of the window's losses (for 0-1 loss, its error count): checks against counts kept elsewhere",
             per_window(&|w| w.loss_sum, &|a| a.mean * a.n as f64),
         )?;
