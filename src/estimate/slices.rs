@@ -851,42 +851,49 @@ struct Grouped {
 }
 
 impl Grouped {
-    /// From each row's group (rows may come in any order; `groups` groups in all): a counting
-    /// sort on the key 2·group + (loss is 0), so each group's loss-1 rows come first. Stable,
-    /// O(n + groups), and no branch on the losses.
-    fn from_keys(rows_and_groups: impl Iterator<Item = (u32, u32)> + Clone, groups: usize, is_one: &[bool]) -> Grouped {
-        let key = |r: u32, g: u32| 2 * g as usize + usize::from(!is_one[r as usize]);
-        let mut start = vec![0u32; 2 * groups + 1];
-        let mut n = 0;
-        for (r, g) in rows_and_groups.clone() {
-            start[key(r, g) + 1] += 1;
-            n += 1;
-        }
-        for b in 1..start.len() {
-            start[b] += start[b - 1];
-        }
-        let bounds = (0..groups).map(|g| (start[2 * g + 1], start[2 * g + 2])).collect();
-        let mut rows = vec![0u32; n];
-        for (r, g) in rows_and_groups {
-            let b = &mut start[key(r, g)];
-            rows[*b as usize] = r;
-            *b += 1;
+    /// A numeric feature's runs of tied values, in sorted order: each run split in place into
+    /// its loss-1 rows, then the others, without a branch on the loss (random losses defeat
+    /// branch prediction).
+    fn by_value(f: &NumIndex, is_one: &[bool]) -> Grouped {
+        let mut rows = vec![0u32; f.order.len()];
+        let mut bounds = Vec::with_capacity(f.ends.len());
+        let mut start = 0usize;
+        for &end in &f.ends {
+            let end = end as usize;
+            let group = &f.order[start..end];
+            let ones = group.iter().filter(|&&r| is_one[r as usize]).count();
+            let (mut a, mut b) = (start, start + ones);
+            for &r in group {
+                let one = usize::from(is_one[r as usize]);
+                rows[if one == 1 { a } else { b }] = r;
+                a += one;
+                b += 1 - one;
+            }
+            bounds.push(((start + ones) as u32, end as u32));
+            start = end;
         }
         Grouped { rows, bounds }
     }
 
-    /// A numeric feature's runs of tied values, in sorted order.
-    fn by_value(f: &NumIndex, is_one: &[bool]) -> Grouped {
-        let group_of = f.ends.iter().enumerate().flat_map(|(g, &end)| {
-            let from = if g == 0 { 0 } else { f.ends[g - 1] };
-            std::iter::repeat_n(g as u32, (end - from) as usize)
-        });
-        Grouped::from_keys(f.order.iter().copied().zip(group_of), f.ends.len(), is_one)
-    }
-
-    /// The rows of each code, in code order.
+    /// The rows of each code, in code order: a counting sort on 2·code + (loss is 0), so each
+    /// code's loss-1 rows come first. Stable, O(n + codes).
     fn by_code(codes: &[u32], m: usize, is_one: &[bool]) -> Grouped {
-        Grouped::from_keys(codes.iter().enumerate().map(|(i, &c)| (i as u32, c)), m, is_one)
+        let key = |i: usize, c: u32| 2 * c as usize + usize::from(!is_one[i]);
+        let mut next = vec![0u32; 2 * m + 1];
+        for (i, &c) in codes.iter().enumerate() {
+            next[key(i, c) + 1] += 1;
+        }
+        for b in 1..next.len() {
+            next[b] += next[b - 1];
+        }
+        let bounds = (0..m).map(|g| (next[2 * g + 1], next[2 * g + 2])).collect();
+        let mut rows = vec![0u32; codes.len()];
+        for (i, &c) in codes.iter().enumerate() {
+            let slot = &mut next[key(i, c)];
+            rows[*slot as usize] = i as u32;
+            *slot += 1;
+        }
+        Grouped { rows, bounds }
     }
 
     /// Calls `f` with each group's sums Σ_{i∈g} e_i s_i for the 64 draws of `words`, in
