@@ -380,7 +380,8 @@ pub fn parse_duration(s: &str) -> Result<Duration, String> {
     if !secs.is_finite() || secs <= 0.0 {
         return Err(format!("{s:?} must be positive"));
     }
-    Ok(Duration::from_secs_f64(secs))
+    // Past u64::MAX seconds a Duration cannot hold it (found by the config fuzz target).
+    Duration::try_from_secs_f64(secs).map_err(|_| format!("{s:?} is too long"))
 }
 
 fn valid_name(s: &str) -> bool {

@@ -136,6 +136,8 @@ fn durations() {
     assert_eq!(parse_duration("500ms").unwrap(), Duration::from_millis(500));
     assert_eq!(parse_duration("1.5h").unwrap(), Duration::from_secs(5400));
     assert!(parse_duration("10").is_err());
+    // Found by the config fuzz target: a finite number of seconds no Duration can hold.
+    assert!(parse_duration("99999999999999999999999999d").unwrap_err().contains("too long"));
     assert!(parse_duration("-3s").is_err());
 }
 
