@@ -122,16 +122,15 @@ struct NewSample<'a> {
 /// file rather than once per row.
 #[derive(Default)]
 struct Joins {
-    /// The samples it completed, in the order they were joined.
+    /// The label delays of the samples it completed, in the order they were joined.
     delays: Vec<f64>,
-    losses: Vec<f64>,
     /// Change in the number of predictions waiting for a label.
     awaiting: i64,
     /// Predictions that arrived already older than the expiry cutoff: expired on arrival.
     expired: u64,
     /// The expiry cutoff before this file: every prediction older than it is decided.
     expired_to: i64,
-    /// The samples it stored, keyed as in [`KeptSamples`].
+    /// The samples it stored, in join order, keyed as in [`KeptSamples`].
     kept: Vec<((i64, i64), Kept)>,
 }
 
@@ -164,11 +163,17 @@ pub struct Batch<'a> {
     pub mtime_ns: Option<i64>,
 }
 
-/// A kept sample as the windows read it: its loss and its slice features (stored JSON).
+/// A kept sample as the windows read it: its loss and its slice features, parsed once when
+/// the sample is kept rather than at every publish.
 #[derive(Clone, Debug)]
 struct Kept {
     loss: f64,
-    features: Option<String>,
+    features: Option<Vec<String>>,
+}
+
+/// Slice features as stored (a JSON array of strings); `None` when absent or unreadable.
+fn parse_features(json: Option<&str>) -> Option<Vec<String>> {
+    json.and_then(|f| serde_json::from_str::<Vec<String>>(f).ok())
 }
 
 /// One model's kept samples by (t_pred, seq): the order the windows cut them in.
@@ -348,17 +353,7 @@ impl Store {
         let plain = Connection::open_with_flags(&path, flags).ok().filter(|c| readable(c).is_ok());
         let conn = plain.or_else(|| {
             // A URI path needs %, ? and # escaped.
-            let escaped: String = path
-                .display()
-                .to_string()
-                .chars()
-                .map(|c| match c {
-                    '%' => "%25".to_string(),
-                    '?' => "%3f".to_string(),
-                    '#' => "%23".to_string(),
-                    c => c.to_string(),
-                })
-                .collect();
+            let escaped = path.display().to_string().replace('%', "%25").replace('?', "%3f").replace('#', "%23");
             let uri = format!("file:{escaped}?immutable=1");
             Connection::open_with_flags(uri, flags).ok().filter(|c| readable(c).is_ok())
         })?;
@@ -541,7 +536,8 @@ impl Store {
             ],
         )?;
         let keep_from = Self::prune_samples(&tx, model)?;
-        out.tracker_restarted = Self::advance_tracker(&tx, model, &joins.losses, now_ms)?;
+        let losses: Vec<f64> = joins.kept.iter().map(|(_, k)| k.loss).collect();
+        out.tracker_restarted = Self::advance_tracker(&tx, model, &losses, now_ms)?;
         tx.commit()?;
         // Only once the commit stands: the samples in memory never run ahead of the database.
         if let Some(kept) = self.kept.get_mut().get_mut(m) {
@@ -559,10 +555,9 @@ impl Store {
             "INSERT INTO sample (model, id, t_pred, t_label, loss, features) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
         )?
         .execute(params![model, id, t_pred, t_label, loss, features])?;
-        let kept = Kept { loss, features: features.map(str::to_string) };
+        let kept = Kept { loss, features: parse_features(features) };
         joins.kept.push(((t_pred, tx.last_insert_rowid()), kept));
         joins.delays.push(((t_label - t_pred).max(0) as f64) / 1000.0);
-        joins.losses.push(loss);
         Ok(())
     }
 
@@ -843,7 +838,9 @@ impl Store {
         if !all.contains_key(model) {
             let mut st = self.conn.prepare_cached("SELECT t_pred, seq, loss, features FROM sample WHERE model = ?1")?;
             let rows = st.query_map([model], |r| {
-                Ok(((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?), Kept { loss: r.get(2)?, features: r.get(3)? }))
+                let features: Option<String> = r.get(3)?;
+                let kept = Kept { loss: r.get(2)?, features: parse_features(features.as_deref()) };
+                Ok(((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?), kept))
             })?;
             let mut kept = KeptSamples::new();
             for row in rows {
@@ -863,10 +860,7 @@ impl Store {
         };
         // Arrival order, as betting needs: seq is the order samples were stored in.
         picked.sort_unstable_by_key(|(k, _)| k.1);
-        Ok(picked
-            .into_iter()
-            .map(|(_, v)| (v.loss, v.features.as_deref().and_then(|f| serde_json::from_str::<Vec<String>>(f).ok())))
-            .collect())
+        Ok(picked.into_iter().map(|(_, v)| (v.loss, v.features.clone())).collect())
     }
 
     /// Predictions still waiting for a label.
