@@ -45,15 +45,19 @@ fn now_ms() -> i64 {
     SystemTime::now().duration_since(UNIX_EPOCH).map_or(0, |d| d.as_millis() as i64)
 }
 
+type SettledKey = (usize, Kind, PathBuf);
+
 struct Pipeline {
     config: Config,
     store: Store,
     snapshot: SharedSnapshot,
     shared: Arc<Shared>,
     health: Arc<Health>,
-    /// Files already settled this run, by path, with the size and mtime they had: unchanged
-    /// files are not read again on every rescan.
-    settled: HashMap<PathBuf, (u64, Option<SystemTime>)>,
+    /// Files already settled, by (model, kind, path), with the size and mtime they had:
+    /// unchanged files are not read again on every rescan. Keyed by model and kind too, since
+    /// two models may read the same folder. Filled from the store at start, so a restart
+    /// beside a spool of thousands of taken files does not query the store once per file.
+    settled: HashMap<SettledKey, (u64, Option<SystemTime>)>,
     /// Resets (by `riskbound reset`, another process) already reflected in the snapshot.
     resets_seen: u64,
     /// The store is a read-only view (the volume refused writes when it was opened): it is
@@ -86,9 +90,26 @@ impl Pipeline {
         Ok(())
     }
 
+    /// Fills `settled` with the files the store records as taken, at the size and mtime they
+    /// had. A file found changed since is read again by [`Pipeline::take`], as it would be
+    /// had the daemon been running when it changed.
+    fn settle_taken(&mut self) -> Result<(), StoreError> {
+        for (i, m) in self.config.models.iter().enumerate() {
+            for kind in [Kind::Prediction, Kind::Label] {
+                for (name, size, mtime_ns) in self.store.taken_file_metas(&m.name, kind)? {
+                    let (Ok(len), Ok(ns)) = (u64::try_from(size), u64::try_from(mtime_ns)) else { continue };
+                    let modified = UNIX_EPOCH + Duration::from_nanos(ns);
+                    self.settled.insert((i, kind, PathBuf::from(name)), (len, Some(modified)));
+                }
+            }
+        }
+        Ok(())
+    }
+
     /// Takes one candidate file if it is new. Returns true when it changed the state.
     fn take(&mut self, c: &Candidate) -> anyhow::Result<bool> {
-        match self.settled.get(&c.path) {
+        let key: SettledKey = (c.model, c.kind, c.path.clone());
+        match self.settled.get(&key) {
             Some(meta) if *meta == (c.len, c.modified) => return Ok(false),
             Some(_) => {
                 // Rewritten, truncated or replaced under the same name: its content is read
@@ -102,7 +123,7 @@ impl Pipeline {
         let mtime_ns = c.modified.and_then(|t| t.duration_since(UNIX_EPOCH).ok()).map(|d| d.as_nanos() as i64);
         if let Some(ns) = mtime_ns {
             if self.store.has_file_meta(&model.name, c.kind, &label, c.len as i64, ns)? {
-                self.settled.insert(c.path.clone(), (c.len, c.modified));
+                self.settled.insert(key, (c.len, c.modified));
                 return Ok(false);
             }
         }
@@ -159,7 +180,7 @@ impl Pipeline {
             Err(e) => {
                 // Retried when the file changes (size or mtime), not on every rescan.
                 tracing::warn!(file = %c.path.display(), error = %e, "read error; will retry when the file changes");
-                self.settled.insert(c.path.clone(), (c.len, c.modified));
+                self.settled.insert(key, (c.len, c.modified));
                 return Ok(false);
             }
         }
@@ -172,13 +193,13 @@ impl Pipeline {
             Err(e) => {
                 // Retried when the file changes (size or mtime), not on every rescan.
                 tracing::warn!(file = %c.path.display(), error = %e, "read error; will retry when the file changes");
-                self.settled.insert(c.path.clone(), (c.len, c.modified));
+                self.settled.insert(key, (c.len, c.modified));
                 return Ok(false);
             }
         };
         if self.store.has_file(&model.name, c.kind, &hash)? {
             tracing::debug!(file = %c.path.display(), "content already taken");
-            self.settled.insert(c.path.clone(), (c.len, c.modified));
+            self.settled.insert(key, (c.len, c.modified));
             return Ok(false);
         }
         let batch = Batch {
@@ -191,7 +212,7 @@ impl Pipeline {
             mtime_ns,
         };
         let out = self.store.ingest_file(model, &batch, now_ms())?;
-        self.settled.insert(c.path.clone(), (c.len, c.modified));
+        self.settled.insert(key, (c.len, c.modified));
         if out.already_taken {
             return Ok(false);
         }
@@ -269,6 +290,7 @@ impl Pipeline {
             Ok(store) => {
                 self.store = store;
                 self.needs_reopen = false;
+                self.settle_taken()?;
                 if self.health.state_unwritable.swap(false, Ordering::SeqCst) {
                     self.shared.ready.store(true, Ordering::SeqCst);
                     tracing::info!("state database accepts writes again; ready, resuming ingest");
@@ -389,6 +411,7 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     };
     // Resume: the snapshot of the committed state is published before anything new is read,
     // and only then is the daemon ready.
+    pipeline.settle_taken()?;
     pipeline.publish()?;
     if writable {
         shared.ready.store(true, Ordering::SeqCst);

@@ -315,3 +315,54 @@ fn a_port_in_use_is_an_error_before_anything_is_ingested() {
     assert!(String::from_utf8_lossy(&out.stderr).contains(&format!("binding 127.0.0.1:{port}")));
     assert!(!dir.path("state/riskbound.sqlite").exists(), "no state touched");
 }
+
+/// Two models may read the same folder (say, one stream judged by two losses): each takes every
+/// file for itself, and a restart re-reads neither's files.
+#[test]
+fn two_models_on_one_folder_each_take_every_file_once() {
+    let dir = TempDir::new("shared");
+    let port = common::free_port();
+    let model = |name: &str| {
+        format!(
+            "  - name: {name}
+    predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: request_id, time: ts, prediction: predicted }} }}
+    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: request_id, time: observed, label: actual }} }}
+    label_wait: 1d
+    windows: [ {{ name: all, last: 1000 }} ]
+"
+        )
+    };
+    let cfg = dir.path("riskbound.yaml");
+    let text = format!(
+        "listen: \"127.0.0.1:{port}\"\nstate_dir: state\nrescan_interval: 200ms\nmodels:\n{}{}",
+        model("east"),
+        model("west")
+    );
+    std::fs::write(&cfg, text).unwrap();
+    let (pred, label) = batches(&WRONG);
+    dir.drop_file("pred-a.csv", &pred);
+    dir.drop_file("label-a.csv", &label);
+    let check = |d: &Daemon, pred_files: f64| {
+        for name in ["east", "west"] {
+            d.wait_files(name, "label", 1.0);
+            let m = d.metrics();
+            let w = [("model", name), ("window", "all")];
+            assert_eq!(m.get("riskbound_window_samples", &w), Some(100.0), "{name}");
+            assert_eq!(m.get("riskbound_window_total_loss", &w), Some(WRONG.len() as f64), "{name}");
+            assert_eq!(
+                m.get("riskbound_files_ingested_total", &[("model", name), ("kind", "prediction")]),
+                Some(pred_files)
+            );
+        }
+    };
+    let d = Daemon::start(&cfg, port);
+    check(&d, 1.0);
+    d.kill9();
+    let d = Daemon::start(&cfg, port);
+    dir.drop_file("pred-b.csv", "request_id,ts,predicted\nz1,1790000000,late\n");
+    d.wait_files("west", "prediction", 2.0); // the restart's first round is over
+    check(&d, 2.0);
+    let log = d.log_text();
+    assert!(!log.contains("pred-a.csv"), "a taken file was looked at again after the restart:\n{log}");
+    assert_eq!(log.matches("batch file taken").count(), 2, "pred-b, once per model:\n{log}");
+}

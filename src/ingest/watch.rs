@@ -43,7 +43,13 @@ pub fn scan(models: &[ModelConfig]) -> Vec<Candidate> {
                     if in_progress(&name) || !src.pattern.matches(&name) {
                         return None;
                     }
-                    let meta = std::fs::metadata(e.path()).ok()?; // follows symlinks
+                    // The entry's own stat is relative to the open directory (no path walk);
+                    // a symlink is followed to what it names.
+                    let meta = if e.file_type().ok()?.is_symlink() {
+                        std::fs::metadata(e.path()).ok()?
+                    } else {
+                        e.metadata().ok()?
+                    };
                     meta.is_file().then(|| Candidate {
                         model: i,
                         kind,

@@ -389,6 +389,19 @@ impl Store {
             .is_some())
     }
 
+    /// Every taken file of (model, kind) with the size and mtime it had, oldest first (a name
+    /// taken again after a rewrite appears again, later): what a restart needs to recognise
+    /// the unchanged files of its spool without one query per file.
+    pub fn taken_file_metas(&self, model: &str, kind: Kind) -> Result<Vec<(String, i64, i64)>, StoreError> {
+        let mut stmt = self.conn.prepare(
+            "SELECT name, size, mtime_ns FROM file
+             WHERE model = ?1 AND kind = ?2 AND size IS NOT NULL AND mtime_ns IS NOT NULL
+             ORDER BY committed_ms, rowid",
+        )?;
+        let rows = stmt.query_map(params![model, kind.as_str()], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?;
+        Ok(rows.collect::<rusqlite::Result<_>>()?)
+    }
+
     /// True when this content was already taken for (model, kind).
     pub fn has_file(&self, model: &str, kind: Kind, hash: &str) -> Result<bool, StoreError> {
         Ok(self
