@@ -1,14 +1,16 @@
 //! The state volume full (ENOSPC) or read-only: the daemon turns not ready, counts it in
 //! `riskbound_state_write_failures_total`, logs one clear line, keeps its committed state, and
-//! resumes by itself once it can write again, with no loss. The volume is a small tmpfs mounted
-//! for the test (CI runs as root).
+//! resumes by itself once it can write again, with no loss. The volumes are mounted for the
+//! test (CI runs as root): a small tmpfs, and an ext4 image on a loop device.
 //!
-//! The read-only case is a volume that is read-only when the daemon starts (a restart onto a
-//! volume the kernel or an operator made read-only), remounted writable later. A volume
-//! turning read-only under the running daemon cannot be produced from a test: Linux refuses to
-//! remount a filesystem read-only while the database file is open for writing (EBUSY). SQLite
-//! then reports SQLITE_READONLY, which takes the same path as SQLITE_FULL
-//! (`StoreError::is_disk`) and also reopens the database (`StoreError::needs_reopen`).
+//! Read-only comes two ways. A volume read-only when the daemon starts (a restart onto a
+//! volume an operator or the kernel made read-only), remounted writable later: a tmpfs. And a
+//! volume turning read-only under the running daemon: Linux refuses a plain read-only remount
+//! while the database is open for writing (EBUSY), but ext4 mounted `errors=remount-ro` turns
+//! itself read-only on a filesystem error whoever holds it open, which is what a failing disk
+//! does to a running daemon; the test raises that error through ext4's `trigger_fs_error`.
+//! Such a volume cannot be made writable again in place: the operator mounts it again, over
+//! the old mount, and the daemon must let go of its old connection.
 
 mod common;
 
@@ -44,6 +46,62 @@ impl Mount {
 impl Drop for Mount {
     fn drop(&mut self) {
         let _ = Command::new("umount").arg("-l").arg(&self.0).status();
+    }
+}
+
+/// An ext4 image on a loop device, mounted `errors=remount-ro`; mounted again (over the old
+/// mount, from a fresh loop device) by [`Ext4::repair`].
+struct Ext4 {
+    image: std::path::PathBuf,
+    at: std::path::PathBuf,
+    loops: Vec<String>,
+}
+
+fn run(cmd: &str, args: &[&str]) -> String {
+    let out = Command::new(cmd).args(args).output().unwrap();
+    assert!(out.status.success(), "{cmd} {args:?}: {}", String::from_utf8_lossy(&out.stderr));
+    String::from_utf8_lossy(&out.stdout).trim().to_string()
+}
+
+impl Ext4 {
+    fn new(image: std::path::PathBuf, at: &std::path::Path) -> Ext4 {
+        std::fs::create_dir_all(at).unwrap();
+        run("truncate", &["-s", "32M", image.to_str().unwrap()]);
+        run("mkfs.ext4", &["-q", "-F", image.to_str().unwrap()]);
+        let mut v = Ext4 { image, at: at.to_path_buf(), loops: Vec::new() };
+        v.mount();
+        v
+    }
+
+    fn mount(&mut self) {
+        let dev = run("losetup", &["-f", "--show", self.image.to_str().unwrap()]);
+        run("mount", &["-o", "errors=remount-ro", &dev, self.at.to_str().unwrap()]);
+        self.loops.push(dev);
+    }
+
+    /// What a failing disk does: ext4 records an error and turns the filesystem read-only.
+    fn fail(&self) {
+        let dev = self.loops.last().unwrap().trim_start_matches("/dev/");
+        std::fs::write(format!("/sys/fs/ext4/{dev}/trigger_fs_error"), "1").unwrap();
+        let probe = self.at.join("probe");
+        let err = std::fs::write(&probe, "x").unwrap_err();
+        assert_eq!(err.raw_os_error(), Some(30), "EROFS after the error: {err}");
+    }
+
+    /// What the operator does: mount the volume again. The daemon still holds files of the old
+    /// mount, so that stays (read-only, hidden) under the new one; e2fsck refuses to check an
+    /// image that is still mounted, so the check an operator would run first is left out.
+    fn repair(&mut self) {
+        self.mount();
+    }
+}
+
+impl Drop for Ext4 {
+    fn drop(&mut self) {
+        for dev in self.loops.iter().rev() {
+            let _ = Command::new("umount").arg("-l").arg(&self.at).status();
+            let _ = Command::new("losetup").args(["-d", dev]).status();
+        }
     }
 }
 
@@ -131,4 +189,47 @@ fn a_read_only_volume_serves_the_committed_state_until_it_accepts_writes() {
     assert_eq!(log.matches("state volume refuses writes").count(), 1);
     drop(d);
     drop(mount);
+}
+
+#[test]
+fn a_volume_failing_read_only_under_the_daemon_is_left_for_its_new_mount() {
+    let dir = TempDir::new("ext4ro");
+    let mut volume = Ext4::new(dir.path("state.img"), &dir.path("state"));
+    let port = common::free_port();
+    let cfg = config(&dir, port);
+    let d = Daemon::start(&cfg, port);
+    dir.drop_file("pred-0001.csv", &batch(0, 100));
+    d.wait_files("disk", "prediction", 1.0);
+    volume.fail();
+    dir.drop_file("pred-0002.csv", &batch(100, 300));
+    d.wait_until(Duration::from_secs(20), |d| ready(d) == 503);
+    let m = d.metrics();
+    assert!(m.get("riskbound_state_write_failures_total", &[]).unwrap() >= 1.0);
+    assert_eq!(m.get("riskbound_state_unwritable", &[]), Some(1.0));
+    assert_eq!(rows(&d), 100.0, "committed state kept and served, nothing half-written");
+    std::thread::sleep(Duration::from_millis(1500)); // a few retries
+    assert_eq!(rows(&d), 100.0, "nothing taken while the state cannot record it");
+    let log = d.log_text();
+    assert_eq!(log.matches("refuses writes").count(), 1, "one clear line, not one per retry:\n{log}");
+    // Checked and mounted again: the daemon opens the new mount's database by itself.
+    volume.repair();
+    let deadline = std::time::Instant::now() + Duration::from_secs(20);
+    while ready(&d) != 200 {
+        assert!(std::time::Instant::now() < deadline, "not ready again after the repair:\n{}", d.log_text());
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    d.wait_files("disk", "prediction", 2.0);
+    assert_eq!(rows(&d), 300.0, "every row once");
+    assert_eq!(d.metrics().get("riskbound_state_unwritable", &[]), Some(0.0));
+    assert!(d.log_text().contains("accepts writes again"));
+    // What it wrote after the repair is on the repaired volume: a restart finds all of it.
+    d.kill9();
+    let d = Daemon::start(&cfg, port);
+    assert_eq!(rows(&d), 300.0, "durable on the repaired volume");
+    assert_eq!(
+        d.metrics().get("riskbound_files_ingested_total", &[("model", "disk"), ("kind", "prediction")]),
+        Some(2.0)
+    );
+    drop(d);
+    drop(volume);
 }

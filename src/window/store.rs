@@ -52,11 +52,15 @@ pub enum StoreError {
 
 impl StoreError {
     /// True when the database can only be written through a new connection: SQLite keeps a
-    /// connection it opened read-only that way.
+    /// connection it opened read-only that way, and after an I/O error the connection's open
+    /// files may belong to a filesystem that failed (ext4 turns itself read-only on an error)
+    /// and was since mounted again over the same path, which only a new open reaches.
     pub fn needs_reopen(&self) -> bool {
         match self {
             StoreError::ReadOnly(_) => true,
-            StoreError::Sql(rusqlite::Error::SqliteFailure(e, _)) => e.code == rusqlite::ErrorCode::ReadOnly,
+            StoreError::Sql(rusqlite::Error::SqliteFailure(e, _)) => {
+                matches!(e.code, rusqlite::ErrorCode::ReadOnly | rusqlite::ErrorCode::SystemIoFailure)
+            }
             _ => false,
         }
     }
