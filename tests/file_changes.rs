@@ -1,7 +1,8 @@
 //! Files that change under the daemon. Each case: no row lost, none counted twice, and a
 //! logged outcome. Outcomes (also in the README):
 //! - rewritten in place or truncated after it was taken: read again ("changed after it was
-//!   taken"); its new rows are taken, rows seen before are rejected as duplicates;
+//!   taken"); its new rows are taken, rows seen before are rejected as duplicates; the same
+//!   when it was rewritten while the daemon was down;
 //! - renamed (twice) or copied: the content is taken once, whatever its names;
 //! - a symlink swapped to another file: each target's content is taken once;
 //! - the watched folder deleted and re-created: the periodic rescan finds the new files.
@@ -110,4 +111,26 @@ fn the_watched_folder_deleted_and_recreated() {
     dir.drop_file("pred-3.csv", &rows(9..10));
     d.wait_files("fc", "prediction", 3.0);
     assert_eq!(taken(&d), (3.0, 10.0, 0.0));
+}
+
+/// Rewritten while the daemon was down: the restart reads it again, exactly as a running daemon
+/// would, and leaves the unchanged files it took alone.
+#[test]
+fn rewritten_while_the_daemon_was_down() {
+    let dir = TempDir::new("fc-down");
+    let port = common::free_port();
+    let cfg = common::simple_config(&dir, port, "rescan_interval: 150ms", "fc", "", "[ { name: all, last: 100000 } ]");
+    let d = Daemon::start(&cfg, port);
+    dir.drop_file("pred-0.csv", &rows(100..110));
+    dir.drop_file("pred-1.csv", &rows(0..10));
+    d.wait_files("fc", "prediction", 2.0);
+    assert!(d.terminate().success());
+    std::thread::sleep(std::time::Duration::from_millis(20)); // a new mtime
+    std::fs::write(dir.path("in/pred-1.csv"), rows(0..15)).unwrap();
+    let d = Daemon::start(&cfg, port);
+    d.wait_files("fc", "prediction", 3.0);
+    assert_eq!(taken(&d), (3.0, 25.0, 10.0));
+    let log = d.log_text();
+    assert!(log.contains("batch file changed after it was taken; reading it again"), "{log}");
+    assert!(!log.contains("pred-0.csv"), "an unchanged taken file was looked at again:\n{log}");
 }
