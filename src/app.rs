@@ -47,6 +47,23 @@ fn now_ms() -> i64 {
 
 type SettledKey = (usize, Kind, PathBuf);
 
+/// A settled file's size and mtime, and the last round whose listing held it.
+struct Settled {
+    len: u64,
+    modified: Option<SystemTime>,
+    round: u64,
+}
+
+impl Settled {
+    fn of(c: &Candidate, round: u64) -> Settled {
+        Settled { len: c.len, modified: c.modified, round }
+    }
+}
+
+/// How many of the most recently taken files a restart reads back into `settled` (older ones,
+/// should they still lie in a folder, are recognised by one query each).
+const SETTLE_RECENT: i64 = 200_000;
+
 struct Pipeline {
     config: Config,
     store: Store,
@@ -56,8 +73,12 @@ struct Pipeline {
     /// Files already settled, by (model, kind, path), with the size and mtime they had:
     /// unchanged files are not read again on every rescan. Keyed by model and kind too, since
     /// two models may read the same folder. Filled from the store at start, so a restart
-    /// beside a spool of thousands of taken files does not query the store once per file.
-    settled: HashMap<SettledKey, (u64, Option<SystemTime>)>,
+    /// beside a spool of thousands of taken files does not query the store once per file;
+    /// files gone from the folders are dropped after each complete round, so it holds what the
+    /// folders hold, not every file of a months-long run.
+    settled: HashMap<SettledKey, Settled>,
+    /// Rounds begun, for `Settled::round`.
+    rounds_begun: u64,
     /// Resets (by `riskbound reset`, another process) already reflected in the snapshot.
     resets_seen: u64,
     /// The store is a read-only view (the volume refused writes when it was opened): it is
@@ -96,10 +117,12 @@ impl Pipeline {
     fn settle_taken(&mut self) -> Result<(), StoreError> {
         for (i, m) in self.config.models.iter().enumerate() {
             for kind in [Kind::Prediction, Kind::Label] {
-                for (name, size, mtime_ns) in self.store.taken_file_metas(&m.name, kind)? {
+                // Newest first: a name taken again after a rewrite keeps its latest size and mtime.
+                for (name, size, mtime_ns) in self.store.taken_file_metas(&m.name, kind, SETTLE_RECENT)? {
                     let (Ok(len), Ok(ns)) = (u64::try_from(size), u64::try_from(mtime_ns)) else { continue };
-                    let modified = UNIX_EPOCH + Duration::from_nanos(ns);
-                    self.settled.insert((i, kind, PathBuf::from(name)), (len, Some(modified)));
+                    let modified = Some(UNIX_EPOCH + Duration::from_nanos(ns));
+                    let round = self.rounds_begun;
+                    self.settled.entry((i, kind, PathBuf::from(name))).or_insert(Settled { len, modified, round });
                 }
             }
         }
@@ -109,8 +132,11 @@ impl Pipeline {
     /// Takes one candidate file if it is new. Returns true when it changed the state.
     fn take(&mut self, c: &Candidate) -> anyhow::Result<bool> {
         let key: SettledKey = (c.model, c.kind, c.path.clone());
-        match self.settled.get(&key) {
-            Some(meta) if *meta == (c.len, c.modified) => return Ok(false),
+        match self.settled.get_mut(&key) {
+            Some(s) if (s.len, s.modified) == (c.len, c.modified) => {
+                s.round = self.rounds_begun;
+                return Ok(false);
+            }
             Some(_) => {
                 // Rewritten, truncated or replaced under the same name: its content is read
                 // again; content taken before adds nothing, rows seen before are duplicates.
@@ -123,7 +149,7 @@ impl Pipeline {
         let mtime_ns = c.modified.and_then(|t| t.duration_since(UNIX_EPOCH).ok()).map(|d| d.as_nanos() as i64);
         if let Some(ns) = mtime_ns {
             if self.store.has_file_meta(&model.name, c.kind, &label, c.len as i64, ns)? {
-                self.settled.insert(key, (c.len, c.modified));
+                self.settled.insert(key, Settled::of(c, self.rounds_begun));
                 return Ok(false);
             }
         }
@@ -180,7 +206,7 @@ impl Pipeline {
             Err(e) => {
                 // Retried when the file changes (size or mtime), not on every rescan.
                 tracing::warn!(file = %c.path.display(), error = %e, "read error; will retry when the file changes");
-                self.settled.insert(key, (c.len, c.modified));
+                self.settled.insert(key, Settled::of(c, self.rounds_begun));
                 return Ok(false);
             }
         }
@@ -193,13 +219,13 @@ impl Pipeline {
             Err(e) => {
                 // Retried when the file changes (size or mtime), not on every rescan.
                 tracing::warn!(file = %c.path.display(), error = %e, "read error; will retry when the file changes");
-                self.settled.insert(key, (c.len, c.modified));
+                self.settled.insert(key, Settled::of(c, self.rounds_begun));
                 return Ok(false);
             }
         };
         if self.store.has_file(&model.name, c.kind, &hash)? {
             tracing::debug!(file = %c.path.display(), "content already taken");
-            self.settled.insert(key, (c.len, c.modified));
+            self.settled.insert(key, Settled::of(c, self.rounds_begun));
             return Ok(false);
         }
         let batch = Batch {
@@ -212,7 +238,7 @@ impl Pipeline {
             mtime_ns,
         };
         let out = self.store.ingest_file(model, &batch, now_ms())?;
-        self.settled.insert(key, (c.len, c.modified));
+        self.settled.insert(key, Settled::of(c, self.rounds_begun));
         if out.already_taken {
             return Ok(false);
         }
@@ -249,8 +275,11 @@ impl Pipeline {
         // A long backlog (a restart after an outage) is published as it is worked through,
         // at most once a second, so /metrics does not wait for the end of the round.
         let mut published = Instant::now();
+        self.rounds_begun += 1;
+        let mut complete = true;
         for c in watch::scan(&self.config.models) {
             if stop.load(Ordering::SeqCst) {
+                complete = false;
                 break;
             }
             match self.take(&c) {
@@ -276,9 +305,14 @@ impl Pipeline {
                             if store_error.is_disk() { "state volume refuses writes" } else { "state database error" };
                         tracing::error!(file = %c.path.display(), error = %store_error, "{what}: not ready; committed state kept, retrying");
                     }
+                    complete = false;
                     break;
                 }
             }
+        }
+        if complete {
+            let round = self.rounds_begun;
+            self.settled.retain(|_, s| s.round == round);
         }
         Ok(changed)
     }
@@ -406,6 +440,7 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         shared: shared.clone(),
         health,
         settled: HashMap::new(),
+        rounds_begun: 0,
         resets_seen: 0,
         needs_reopen: !writable,
     };

@@ -134,3 +134,24 @@ fn rewritten_while_the_daemon_was_down() {
     assert!(log.contains("batch file changed after it was taken; reading it again"), "{log}");
     assert!(!log.contains("pred-0.csv"), "an unchanged taken file was looked at again:\n{log}");
 }
+
+/// Moved out of the folder and back, unchanged: taken once. The daemon drops files that left
+/// its folders from memory after a round (so memory holds what the folders hold, not every file
+/// of a long run); on its return this one is recognised from the state.
+#[test]
+fn moved_away_and_back_unchanged() {
+    let (dir, d) = setup("fc-away");
+    dir.drop_file("pred-1.csv", &rows(0..10));
+    d.wait_files("fc", "prediction", 1.0);
+    std::fs::rename(dir.path("in/pred-1.csv"), dir.path("pred-1.csv")).unwrap();
+    dir.drop_file("pred-2.csv", &rows(10..20));
+    d.wait_files("fc", "prediction", 2.0); // a round listed the folder without pred-1.csv
+    std::thread::sleep(std::time::Duration::from_millis(400)); // and rescans since
+    std::fs::rename(dir.path("pred-1.csv"), dir.path("in/pred-1.csv")).unwrap();
+    dir.drop_file("pred-3.csv", &rows(20..30));
+    d.wait_files("fc", "prediction", 3.0);
+    assert_eq!(taken(&d), (3.0, 30.0, 0.0));
+    let log = d.log_text();
+    assert!(!log.contains("changed after it was taken"), "{log}");
+    assert_eq!(log.matches("pred-1.csv").count(), 1, "taken once, never looked at again:\n{log}");
+}

@@ -393,16 +393,16 @@ impl Store {
             .is_some())
     }
 
-    /// Every taken file of (model, kind) with the size and mtime it had, oldest first (a name
-    /// taken again after a rewrite appears again, later): what a restart needs to recognise
-    /// the unchanged files of its spool without one query per file.
-    pub fn taken_file_metas(&self, model: &str, kind: Kind) -> Result<Vec<(String, i64, i64)>, StoreError> {
+    /// The `limit` most recently taken files of (model, kind) with the size and mtime each had,
+    /// newest first (a name taken again after a rewrite appears once per take): what a restart
+    /// needs to recognise the unchanged files of its spool without one query per file.
+    pub fn taken_file_metas(&self, model: &str, kind: Kind, limit: i64) -> Result<Vec<(String, i64, i64)>, StoreError> {
         let mut stmt = self.conn.prepare(
             "SELECT name, size, mtime_ns FROM file
              WHERE model = ?1 AND kind = ?2 AND size IS NOT NULL AND mtime_ns IS NOT NULL
-             ORDER BY committed_ms, rowid",
+             ORDER BY rowid DESC LIMIT ?3",
         )?;
-        let rows = stmt.query_map(params![model, kind.as_str()], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?;
+        let rows = stmt.query_map(params![model, kind.as_str(), limit], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
 
