@@ -45,8 +45,6 @@ fn now_ms() -> i64 {
     SystemTime::now().duration_since(UNIX_EPOCH).map_or(0, |d| d.as_millis() as i64)
 }
 
-type SettledKey = (usize, Kind, PathBuf);
-
 /// A settled file's size and mtime, and the last round whose listing held it.
 struct Settled {
     len: u64,
@@ -76,7 +74,7 @@ struct Pipeline {
     /// beside a spool of thousands of taken files does not query the store once per file;
     /// files gone from the folders are dropped after each complete round, so it holds what the
     /// folders hold, not every file of a months-long run.
-    settled: HashMap<SettledKey, Settled>,
+    settled: HashMap<(usize, Kind), HashMap<PathBuf, Settled>>,
     /// Rounds begun, for `Settled::round`.
     rounds_begun: u64,
     /// Resets (by `riskbound reset`, another process) already reflected in the snapshot.
@@ -122,7 +120,8 @@ impl Pipeline {
                     let (Ok(len), Ok(ns)) = (u64::try_from(size), u64::try_from(mtime_ns)) else { continue };
                     let modified = Some(UNIX_EPOCH + Duration::from_nanos(ns));
                     let round = self.rounds_begun;
-                    self.settled.entry((i, kind, PathBuf::from(name))).or_insert(Settled { len, modified, round });
+                    let files = self.settled.entry((i, kind)).or_default();
+                    files.entry(PathBuf::from(name)).or_insert(Settled { len, modified, round });
                 }
             }
         }
@@ -131,10 +130,10 @@ impl Pipeline {
 
     /// Takes one candidate file if it is new. Returns true when it changed the state.
     fn take(&mut self, c: &Candidate) -> anyhow::Result<bool> {
-        let key: SettledKey = (c.model, c.kind, c.path.clone());
-        match self.settled.get_mut(&key) {
+        let round = self.rounds_begun;
+        match self.settled.entry((c.model, c.kind)).or_default().get_mut(&c.path) {
             Some(s) if (s.len, s.modified) == (c.len, c.modified) => {
-                s.round = self.rounds_begun;
+                s.round = round;
                 return Ok(false);
             }
             Some(_) => {
@@ -144,13 +143,22 @@ impl Pipeline {
             }
             None => {}
         }
+        let read = self.read(c)?;
+        if read.is_some() {
+            self.settled.entry((c.model, c.kind)).or_default().insert(c.path.clone(), Settled::of(c, round));
+        }
+        Ok(read == Some(true))
+    }
+
+    /// Reads a candidate not settled at its size and mtime, and ingests it unless its content
+    /// was taken before. `Some(changed state)` settles it; `None` leaves it to the next round.
+    fn read(&mut self, c: &Candidate) -> anyhow::Result<Option<bool>> {
         let model = &self.config.models[c.model];
         let label = c.path.display().to_string();
         let mtime_ns = c.modified.and_then(|t| t.duration_since(UNIX_EPOCH).ok()).map(|d| d.as_nanos() as i64);
         if let Some(ns) = mtime_ns {
             if self.store.has_file_meta(&model.name, c.kind, &label, c.len as i64, ns)? {
-                self.settled.insert(key, Settled::of(c, self.rounds_begun));
-                return Ok(false);
+                return Ok(Some(false));
             }
         }
         let file = match std::fs::File::open(&c.path) {
@@ -159,7 +167,7 @@ impl Pipeline {
                 // Gone between listing and reading (renamed again, deleted): the next listing
                 // finds it under its new name, if any.
                 tracing::warn!(file = %c.path.display(), error = %e, "cannot open batch file; will retry");
-                return Ok(false);
+                return Ok(None);
             }
         };
         let src = if c.kind == Kind::Prediction { &model.predictions } else { &model.labels };
@@ -206,8 +214,7 @@ impl Pipeline {
             Err(e) => {
                 // Retried when the file changes (size or mtime), not on every rescan.
                 tracing::warn!(file = %c.path.display(), error = %e, "read error; will retry when the file changes");
-                self.settled.insert(key, Settled::of(c, self.rounds_begun));
-                return Ok(false);
+                return Ok(Some(false));
             }
         }
         for line in std::mem::take(&mut capped.too_long) {
@@ -219,14 +226,12 @@ impl Pipeline {
             Err(e) => {
                 // Retried when the file changes (size or mtime), not on every rescan.
                 tracing::warn!(file = %c.path.display(), error = %e, "read error; will retry when the file changes");
-                self.settled.insert(key, Settled::of(c, self.rounds_begun));
-                return Ok(false);
+                return Ok(Some(false));
             }
         };
         if self.store.has_file(&model.name, c.kind, &hash)? {
             tracing::debug!(file = %c.path.display(), "content already taken");
-            self.settled.insert(key, Settled::of(c, self.rounds_begun));
-            return Ok(false);
+            return Ok(Some(false));
         }
         let batch = Batch {
             kind: c.kind,
@@ -238,9 +243,8 @@ impl Pipeline {
             mtime_ns,
         };
         let out = self.store.ingest_file(model, &batch, now_ms())?;
-        self.settled.insert(key, Settled::of(c, self.rounds_begun));
         if out.already_taken {
-            return Ok(false);
+            return Ok(Some(false));
         }
         if out.tracker_restarted {
             tracing::warn!(
@@ -264,7 +268,7 @@ impl Pipeline {
             // One line per file, not per row: a file of a million bad rows is one log line.
             tracing::warn!(reason = first.reason.as_str(), rejected = bad, "first rejected row: {}", first.message);
         }
-        Ok(true)
+        Ok(Some(true))
     }
 
     /// One pass over every input folder. A commit the database refuses (disk full, read-only)
@@ -312,7 +316,9 @@ impl Pipeline {
         }
         if complete {
             let round = self.rounds_begun;
-            self.settled.retain(|_, s| s.round == round);
+            for files in self.settled.values_mut() {
+                files.retain(|_, s| s.round == round);
+            }
         }
         Ok(changed)
     }

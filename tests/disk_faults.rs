@@ -125,6 +125,34 @@ fn rows(d: &Daemon) -> f64 {
     d.metrics().get("riskbound_rows_ingested_total", &[("model", "disk"), ("kind", "prediction")]).unwrap()
 }
 
+/// The daemon while its volume refuses writes: not ready, the failure counted and logged once,
+/// the `committed` rows served.
+fn refusing_writes(d: &Daemon, committed: f64) {
+    assert_eq!(ready(d), 503, "not ready while the state cannot be written");
+    let m = d.metrics();
+    assert!(m.get("riskbound_state_write_failures_total", &[]).unwrap() >= 1.0);
+    assert_eq!(m.get("riskbound_state_unwritable", &[]), Some(1.0));
+    assert_eq!(rows(d), committed, "committed state kept and served, nothing half-written");
+    let log = d.log_text();
+    assert_eq!(log.matches("state volume refuses writes").count(), 1, "one clear line, not one per retry:\n{log}");
+}
+
+/// The daemon once the volume accepts writes again: ready by itself, with `files` files and
+/// `total` rows taken, each once.
+fn writing_again(d: &Daemon, files: f64, total: f64) {
+    let deadline = std::time::Instant::now() + Duration::from_secs(20);
+    while ready(d) != 200 {
+        assert!(std::time::Instant::now() < deadline, "not ready again:\n{}", d.log_text());
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    d.wait_files("disk", "prediction", files);
+    assert_eq!(rows(d), total, "every row once");
+    assert_eq!(d.metrics().get("riskbound_state_unwritable", &[]), Some(0.0));
+    let log = d.log_text();
+    assert!(log.contains("accepts writes again"));
+    assert_eq!(log.matches("state volume refuses writes").count(), 1);
+}
+
 #[test]
 fn a_full_volume_makes_the_daemon_not_ready_until_space_is_back() {
     let dir = TempDir::new("enospc");
@@ -138,19 +166,10 @@ fn a_full_volume_makes_the_daemon_not_ready_until_space_is_back() {
     let _ = Command::new("dd").args(["if=/dev/zero", &format!("of={}", filler.display()), "bs=64k"]).output();
     dir.drop_file("pred-0002.csv", &batch(100, 20_100));
     d.wait_until(Duration::from_secs(20), |d| ready(d) == 503);
-    let m = d.metrics();
-    assert!(m.get("riskbound_state_write_failures_total", &[]).unwrap() >= 1.0);
-    assert_eq!(m.get("riskbound_state_unwritable", &[]), Some(1.0));
-    assert_eq!(rows(&d), 100.0, "committed state kept, nothing half-written");
-    let log = d.log_text();
-    assert_eq!(log.matches("state volume refuses writes").count(), 1, "one clear line, not one per retry:\n{log}");
+    refusing_writes(&d, 100.0);
     // Space is back: the daemon resumes by itself.
     std::fs::remove_file(&filler).unwrap();
-    d.wait_until(Duration::from_secs(20), |d| ready(d) == 200);
-    d.wait_files("disk", "prediction", 2.0);
-    assert_eq!(rows(&d), 20_100.0);
-    assert_eq!(d.metrics().get("riskbound_state_unwritable", &[]), Some(0.0));
-    assert!(d.log_text().contains("accepts writes again"));
+    writing_again(&d, 2.0, 20_100.0);
     drop(d);
     drop(mount);
 }
@@ -170,23 +189,12 @@ fn a_read_only_volume_serves_the_committed_state_until_it_accepts_writes() {
     dir.drop_file("pred-0002.csv", &batch(100, 300));
     let d = Daemon::spawn(&cfg, port);
     d.wait_until(Duration::from_secs(20), |d| d.metrics().get("riskbound_state_unwritable", &[]) == Some(1.0));
-    assert_eq!(ready(&d), 503, "not ready while the state cannot be written");
-    let m = d.metrics();
-    assert!(m.get("riskbound_state_write_failures_total", &[]).unwrap() >= 1.0);
-    assert_eq!(rows(&d), 100.0, "the committed state is served, read-only");
+    refusing_writes(&d, 100.0);
     std::thread::sleep(Duration::from_millis(1500)); // a few retries
     assert_eq!(rows(&d), 100.0, "nothing taken while the state cannot record it");
-    let log = d.log_text();
-    assert_eq!(log.matches("state volume refuses writes").count(), 1, "one clear line, not one per retry:\n{log}");
     // Writable again: the daemon opens the state for writing by itself and takes the new file.
     mount.remount("rw");
-    d.wait_until(Duration::from_secs(20), |d| ready(d) == 200);
-    d.wait_files("disk", "prediction", 2.0);
-    assert_eq!(rows(&d), 300.0, "every row once");
-    assert_eq!(d.metrics().get("riskbound_state_unwritable", &[]), Some(0.0));
-    let log = d.log_text();
-    assert!(log.contains("accepts writes again"));
-    assert_eq!(log.matches("state volume refuses writes").count(), 1);
+    writing_again(&d, 2.0, 300.0);
     drop(d);
     drop(mount);
 }
@@ -203,25 +211,12 @@ fn a_volume_failing_read_only_under_the_daemon_is_left_for_its_new_mount() {
     volume.fail();
     dir.drop_file("pred-0002.csv", &batch(100, 300));
     d.wait_until(Duration::from_secs(20), |d| ready(d) == 503);
-    let m = d.metrics();
-    assert!(m.get("riskbound_state_write_failures_total", &[]).unwrap() >= 1.0);
-    assert_eq!(m.get("riskbound_state_unwritable", &[]), Some(1.0));
-    assert_eq!(rows(&d), 100.0, "committed state kept and served, nothing half-written");
+    refusing_writes(&d, 100.0);
     std::thread::sleep(Duration::from_millis(1500)); // a few retries
     assert_eq!(rows(&d), 100.0, "nothing taken while the state cannot record it");
-    let log = d.log_text();
-    assert_eq!(log.matches("refuses writes").count(), 1, "one clear line, not one per retry:\n{log}");
-    // Checked and mounted again: the daemon opens the new mount's database by itself.
+    // Mounted again: the daemon opens the new mount's database by itself.
     volume.repair();
-    let deadline = std::time::Instant::now() + Duration::from_secs(20);
-    while ready(&d) != 200 {
-        assert!(std::time::Instant::now() < deadline, "not ready again after the repair:\n{}", d.log_text());
-        std::thread::sleep(Duration::from_millis(50));
-    }
-    d.wait_files("disk", "prediction", 2.0);
-    assert_eq!(rows(&d), 300.0, "every row once");
-    assert_eq!(d.metrics().get("riskbound_state_unwritable", &[]), Some(0.0));
-    assert!(d.log_text().contains("accepts writes again"));
+    writing_again(&d, 2.0, 300.0);
     // What it wrote after the repair is on the repaired volume: a restart finds all of it.
     d.kill9();
     let d = Daemon::start(&cfg, port);
