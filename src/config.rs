@@ -106,6 +106,7 @@ struct RawWindow {
     name: Spanned<String>,
     last: Option<Spanned<i64>>,
     span: Option<Spanned<String>>,
+    mature: Option<Spanned<bool>>,
 }
 
 #[derive(Deserialize)]
@@ -117,6 +118,7 @@ struct RawSla {
     min_label_coverage: Option<Spanned<f64>>,
     change_horizon: Option<Spanned<i64>>,
     reference: Option<Spanned<RawReference>>,
+    decide_on: Option<Spanned<String>>,
 }
 
 #[derive(Deserialize)]
@@ -260,7 +262,35 @@ pub struct SourceConfig {
 pub struct WindowConfig {
     pub name: String,
     pub kind: WindowKind,
+    /// Only predictions whose label_wait is over: every label that will come has had its
+    /// chance, so the delay-robust bounds are as tight as the labels allow.
+    pub mature: bool,
 }
+
+/// Which bounds decide a window's SLA state.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum DecideOn {
+    /// The cohort's bounds with unknown losses at their worst (true whatever the delays
+    /// depend on): the default.
+    DelayRobust,
+    /// The labelled samples' bounds: tighter, but true only if which labels have come does not
+    /// depend on the outcomes.
+    LabelledOnly,
+}
+
+impl DecideOn {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            DecideOn::DelayRobust => "delay-robust",
+            DecideOn::LabelledOnly => "labelled-only",
+        }
+    }
+}
+
+/// The caution printed when a model's SLA state decides on the labelled samples alone.
+pub const LABELLED_ONLY_CAUTION: &str = "sla.decide_on is labelled-only: the SLA state trusts bounds on the labelled \
+samples alone, which are wrong when label delays depend on outcomes (a late delivery or a chargeback is known later \
+than a good outcome); riskbound_label_delay_outcome_dependent says when that is visible";
 
 /// How a window is bounded.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -287,6 +317,8 @@ pub struct SlaConfig {
     pub change_horizon: u64,
     /// The harmful-shift test's reference, if configured.
     pub reference: Option<ReferenceConfig>,
+    /// Which bounds decide the state.
+    pub decide_on: DecideOn,
 }
 
 /// A reference set (validation data) for the harmful-shift test: H0 "the deployed risk is at
@@ -685,7 +717,18 @@ impl Checker {
                     self.push(n, &format!("{wk}.last"), format!("must be at least 1, got {}", n.value));
                     None
                 }
-                (None, Some(s)) => self.duration_ms(s, &format!("{wk}.span")).map(WindowKind::SpanMs),
+                (None, Some(s)) => match self.duration_ms(s, &format!("{wk}.span")) {
+                    Some(ms) if ms >= 1000 => Some(WindowKind::SpanMs(ms)),
+                    Some(_) => {
+                        self.push(
+                            s,
+                            &format!("{wk}.span"),
+                            "must be at least 1s (cohorts count predictions per second)",
+                        );
+                        None
+                    }
+                    None => None,
+                },
                 (Some(n), Some(_)) => {
                     self.push(n, &wk, "give last or span, not both");
                     None
@@ -696,7 +739,11 @@ impl Checker {
                 }
             };
             if let Some(kind) = kind {
-                windows.push(WindowConfig { name: w.name.value.clone(), kind });
+                windows.push(WindowConfig {
+                    name: w.name.value.clone(),
+                    kind,
+                    mature: w.mature.as_ref().is_some_and(|m| m.value),
+                });
             }
         }
 
@@ -761,7 +808,28 @@ impl Checker {
                 .reference
                 .as_ref()
                 .and_then(|r| self.reference(r, &format!("{k}.sla.reference"), loss, method, confidence));
-            SlaConfig { max_risk: s.max_risk.value, method, min_samples, min_label_coverage, change_horizon, reference }
+            let decide_on = match s.decide_on.as_ref().map(|d| d.value.as_str()) {
+                None | Some("delay-robust") => DecideOn::DelayRobust,
+                Some("labelled-only") => DecideOn::LabelledOnly,
+                Some(other) => {
+                    let d = s.decide_on.as_ref().expect("matched Some");
+                    self.push(
+                        d,
+                        &format!("{k}.sla.decide_on"),
+                        format!("{other:?} is not delay-robust or labelled-only"),
+                    );
+                    DecideOn::DelayRobust
+                }
+            };
+            SlaConfig {
+                max_risk: s.max_risk.value,
+                method,
+                min_samples,
+                min_label_coverage,
+                change_horizon,
+                reference,
+                decide_on,
+            }
         });
         let mut alerts = AlertsConfig::default();
         if let Some(a) = &raw.alerts {
@@ -1022,19 +1090,33 @@ impl Config {
                 );
             }
             for w in &m.windows {
-                match w.kind {
-                    WindowKind::Last(n) => s += &format!("  window {}: newest {n} labelled samples\n", w.name),
-                    WindowKind::SpanMs(ms) => {
-                        s += &format!("  window {}: prediction time within {}s of the newest\n", w.name, ms / 1000)
+                let what = match (w.kind, w.mature) {
+                    (WindowKind::Last(n), false) => {
+                        format!("newest {n} labelled samples; cohort: the newest {n} predictions, labelled or not")
                     }
-                }
+                    (WindowKind::SpanMs(ms), false) => {
+                        format!("prediction time within {}s of the newest prediction", ms / 1000)
+                    }
+                    (WindowKind::Last(n), true) => format!("the newest {n} predictions whose label_wait is over"),
+                    (WindowKind::SpanMs(ms), true) => {
+                        format!("prediction time within {}s, ending label_wait before the newest prediction", ms / 1000)
+                    }
+                };
+                s += &format!("  window {}: {what}\n", w.name);
             }
             match &m.sla {
                 Some(sla) => {
                     s += &format!(
-                        "  sla: max_risk {} decided by {} (min_samples {}, min_label_coverage {})\n",
-                        sla.max_risk, sla.method, sla.min_samples, sla.min_label_coverage
-                    )
+                        "  sla: max_risk {} decided by {} on the {} bounds (min_samples {}, min_label_coverage {})\n",
+                        sla.max_risk,
+                        sla.method,
+                        sla.decide_on.as_str(),
+                        sla.min_samples,
+                        sla.min_label_coverage
+                    );
+                    if sla.decide_on == DecideOn::LabelledOnly {
+                        s += &format!("  caution: {LABELLED_ONLY_CAUTION}\n");
+                    }
                 }
                 None => s += "  sla: none\n",
             }

@@ -437,7 +437,7 @@ fn run_reset(model: &str, config: &Path) -> anyhow::Result<()> {
         .with_context(|| format!("opening the state in {}", config.state_dir.display()))?;
     let now = std::time::SystemTime::now().duration_since(std::time::UNIX_EPOCH).map_or(0, |d| d.as_millis() as i64);
     store.reset(model, now).context("writing the reset")?;
-    println!("{model}: anytime sequences and alarms restart from the next label");
+    println!("{model}: anytime sequences and alarms restart from the next prediction whose label_wait is over");
     Ok(())
 }
 
@@ -449,10 +449,17 @@ fn run_daemon(a: &RunArgs) -> anyhow::Result<()> {
     init_logs(&a.log_format);
     tracing::info!(
         models = config.models.len(),
-        "riskbound {}: bounds assume i.i.d. samples within a window, bounded losses, and labels not selected by outcome; \
-         the anytime sequences and alarms also assume the order of samples does not depend on their losses",
+        "riskbound {}: bounds assume i.i.d. predictions within a window and bounded losses; the delay-robust bounds \
+         (which decide the SLA state by default) and the anytime sequences and alarms (fed in prediction-time order \
+         once label_wait is over) hold whatever the label delays depend on; the labelled-only bounds also assume \
+         labels are not delayed or missing because of the outcome",
         env!("CARGO_PKG_VERSION")
     );
+    for m in &config.models {
+        if m.sla.as_ref().is_some_and(|s| s.decide_on == riskbound::config::DecideOn::LabelledOnly) {
+            tracing::warn!(model = %m.name, "{}", riskbound::config::LABELLED_ONLY_CAUTION);
+        }
+    }
     let running = riskbound::app::start(config)?;
     running.run_until_signal()
 }

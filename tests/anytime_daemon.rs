@@ -1,6 +1,11 @@
 //! The anytime sequences and alarms in the daemon: durable through kill -9 (the state after
 //! every file is exactly what an uninterrupted replay gives), reset while running, restarted
 //! when the settings change, and the harmful-shift threshold taken from a reference file.
+//!
+//! The daemon feeds its tracker a prediction once its label_wait is over, in prediction-time
+//! order: after a file that moved the newest event time to W, every prediction older than
+//! W − label_wait. Here prediction i (0-based over all batches) is at T + i seconds and its label
+//! at T + i + 60, so after label file b that is the first b·ROWS + ROWS − 1 + 60 − wait of them.
 
 mod common;
 
@@ -37,6 +42,12 @@ fn feed(dir: &TempDir, daemon: &Daemon, b: usize, rate: f64, rng: &mut u64) -> V
     losses
 }
 
+/// Predictions whose wait is over once label file `b` is taken, with label_wait `wait` seconds
+/// (at least 200 s, a batch's span, so that no prediction's wait ends before its label file).
+fn matured(b: usize, wait: usize) -> usize {
+    (b * ROWS + ROWS - 1 + 60).saturating_sub(wait).min((b + 1) * ROWS)
+}
+
 fn replayed(spec: TrackerSpec, losses: &[f64]) -> Tracker {
     let mut t = Tracker::new(spec);
     for &l in losses {
@@ -69,11 +80,14 @@ fn spec(max_risk: f64) -> TrackerSpec {
 /// Every anytime number the daemon exports equals the replay's, to the last bit printed.
 fn assert_matches(m: &Metrics, t: &Tracker) {
     let samples = m.get("riskbound_window_samples", &[("model", "m"), ("window", "since-reset")]);
-    assert_eq!(samples, Some(t.n() as f64));
+    assert_eq!(samples, Some(t.labelled() as f64));
+    let cohort = m.get("riskbound_window_cohort_predictions", &[("model", "m"), ("window", "since-reset")]);
+    assert_eq!(cohort, Some(t.n() as f64));
     for s in Sequence::ALL {
-        let b = t.bounds(s);
-        assert_eq!(m.get("riskbound_risk_lower_bound", &since_reset(s.name())), Some(b.lower), "{s} lower");
-        assert_eq!(m.get("riskbound_risk_upper_bound", &since_reset(s.name())), Some(b.upper), "{s} upper");
+        // No bounds are exported before the first prediction is taken.
+        let b = (t.n() > 0).then(|| t.bounds(s));
+        assert_eq!(m.get("riskbound_risk_lower_bound", &since_reset(s.name())), b.map(|b| b.lower), "{s} lower");
+        assert_eq!(m.get("riskbound_risk_upper_bound", &since_reset(s.name())), b.map(|b| b.upper), "{s} upper");
     }
     let e = t.exceeded().unwrap();
     assert_eq!(m.get("riskbound_alarm_log_evidence", &alarm("exceeded")), Some(e.log_evidence()));
@@ -87,10 +101,11 @@ fn assert_matches(m: &Metrics, t: &Tracker) {
 fn anytime_state_resumes_exactly_after_kill_9() {
     let dir = TempDir::new("anytime-kill");
     let port = free_port();
-    let model = "    label_wait: 1d\n    sla: { max_risk: 0.2 }";
+    let model = "    label_wait: 1000s\n    sla: { max_risk: 0.2 }";
     let cfg = simple_config(&dir, port, "rescan_interval: 100ms", "m", model, "[{ name: all, last: 100000 }]");
     let mut replay = Tracker::new(spec(0.2));
     let mut rng = 99u64;
+    let (mut all, mut fed) = (Vec::new(), 0usize);
     let mut daemon = Daemon::start(&cfg, port);
     let mut kills = 0;
     for b in 0..16 {
@@ -107,14 +122,16 @@ fn anytime_state_resumes_exactly_after_kill_9() {
             daemon = Daemon::start(&cfg, port);
         }
         daemon.wait_files("m", "label", (b + 1) as f64);
-        for l in losses {
+        all.extend(losses);
+        for &l in &all[fed..matured(b, 1000)] {
             replay.push(l);
         }
+        fed = matured(b, 1000);
         assert_matches(&daemon.metrics(), &replay);
     }
     assert!(kills >= 5);
-    // The change detector fires after the step; "exceeded since reset" still owes the evidence
-    // of 1600 healthy labels (METHODS.md §2.7), which is why both exist.
+    assert_eq!(replay.n(), 2259, "every prediction older than the newest event time minus label_wait");
+    // The change detector fires after the step at prediction 1600.
     assert!(replay.change().unwrap().alarm_at().is_some_and(|t| t > 1600), "{:?}", replay.change());
     // A clean stop and start changes nothing either.
     assert!(daemon.terminate().success());
@@ -126,13 +143,20 @@ fn anytime_state_resumes_exactly_after_kill_9() {
 fn reset_restarts_the_sequences_while_the_daemon_runs() {
     let dir = TempDir::new("anytime-reset");
     let port = free_port();
-    let model = "    label_wait: 1d\n    sla: { max_risk: 0.2 }";
+    let model = "    label_wait: 250s\n    sla: { max_risk: 0.2 }";
     let cfg = simple_config(&dir, port, "rescan_interval: 100ms", "m", model, "[{ name: all, last: 100000 }]");
     let daemon = Daemon::start(&cfg, port);
     let mut rng = 5u64;
-    feed(&dir, &daemon, 0, 0.5, &mut rng);
+    let mut all = feed(&dir, &daemon, 0, 0.5, &mut rng);
+    all.extend(feed(&dir, &daemon, 1, 0.5, &mut rng));
     let m = daemon.metrics();
-    assert_eq!(m.get("riskbound_alarm_firing", &alarm("exceeded")), Some(1.0), "a risk of 0.5 against 0.2 fires");
+    assert_eq!(
+        m.get("riskbound_alarm_firing", &alarm("exceeded")),
+        Some(1.0),
+        "a risk of 0.5 against 0.2 fires: {:?} {:?}",
+        m.get("riskbound_window_cohort_predictions", &[("model", "m"), ("window", "since-reset")]),
+        m.get("riskbound_alarm_log_evidence", &alarm("exceeded"))
+    );
 
     let out =
         std::process::Command::new(bin()).args(["reset", "m", "--config", cfg.to_str().unwrap()]).output().unwrap();
@@ -143,10 +167,10 @@ fn reset_restarts_the_sequences_while_the_daemon_runs() {
     let m = daemon.metrics();
     assert_eq!(m.get("riskbound_window_samples", &[("model", "m"), ("window", "since-reset")]), Some(0.0));
     assert_eq!(m.get("riskbound_alarm_firing", &alarm("exceeded")), Some(0.0));
-    assert_eq!(m.get("riskbound_window_samples", &[("model", "m"), ("window", "all")]), Some(ROWS as f64));
+    assert_eq!(m.get("riskbound_window_samples", &[("model", "m"), ("window", "all")]), Some(2.0 * ROWS as f64));
 
-    let losses = feed(&dir, &daemon, 1, 0.05, &mut rng);
-    assert_matches(&daemon.metrics(), &replayed(spec(0.2), &losses));
+    all.extend(feed(&dir, &daemon, 2, 0.05, &mut rng));
+    assert_matches(&daemon.metrics(), &replayed(spec(0.2), &all[matured(1, 250)..matured(2, 250)]));
 
     let out =
         std::process::Command::new(bin()).args(["reset", "nope", "--config", cfg.to_str().unwrap()]).output().unwrap();
@@ -164,12 +188,12 @@ fn changed_settings_restart_the_sequences_and_say_so() {
         port,
         "rescan_interval: 100ms",
         "m",
-        "    label_wait: 1d\n    sla: { max_risk: 0.2 }",
+        "    label_wait: 250s\n    sla: { max_risk: 0.2 }",
         windows,
     );
     let mut rng = 7u64;
     let daemon = Daemon::start(&cfg, port);
-    feed(&dir, &daemon, 0, 0.1, &mut rng);
+    let mut all = feed(&dir, &daemon, 0, 0.1, &mut rng);
     assert!(daemon.terminate().success());
 
     let cfg = simple_config(
@@ -177,12 +201,12 @@ fn changed_settings_restart_the_sequences_and_say_so() {
         port,
         "rescan_interval: 100ms",
         "m",
-        "    label_wait: 1d\n    sla: { max_risk: 0.3 }",
+        "    label_wait: 250s\n    sla: { max_risk: 0.3 }",
         windows,
     );
     let daemon = Daemon::start(&cfg, port);
-    let losses = feed(&dir, &daemon, 1, 0.1, &mut rng);
-    assert_matches(&daemon.metrics(), &replayed(spec(0.3), &losses));
+    all.extend(feed(&dir, &daemon, 1, 0.1, &mut rng));
+    assert_matches(&daemon.metrics(), &replayed(spec(0.3), &all[matured(0, 250)..matured(1, 250)]));
     assert!(daemon.log_text().contains("anytime sequences and alarms restarted"), "{}", daemon.log_text());
 }
 

@@ -69,10 +69,10 @@ proptest! {
         let dir = TempDir::new("kept");
         let mut cfg = model_config();
         cfg.windows = vec![
-            WindowConfig { name: "last".into(), kind: WindowKind::Last(5) },
-            WindowConfig { name: "span".into(), kind: WindowKind::SpanMs(4_000) },
+            WindowConfig { name: "last".into(), kind: WindowKind::Last(5), mature: false },
+            WindowConfig { name: "span".into(), kind: WindowKind::SpanMs(4_000), mature: false },
         ];
-        let everything = WindowConfig { name: "everything kept".into(), kind: WindowKind::Last(u64::MAX / 4) };
+        let everything = WindowConfig { name: "everything kept".into(), kind: WindowKind::Last(u64::MAX / 4), mature: false };
         let mut store = Store::open(&dir.0).unwrap();
         let rec = |id: usize, t: i64, v: u8| Record {
             line: 2,

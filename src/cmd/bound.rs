@@ -52,6 +52,10 @@ pub struct GroupReport {
     /// Losses that were clipped at the declared maximum (regression losses only).
     pub clipped: u64,
     pub bounds: Vec<(Method, Bounds)>,
+    /// Rows without a label, and the group's delay-robust bounds (every row, a missing label
+    /// counted at 0 below and at the loss maximum above); empty when every row is labelled.
+    pub unlabelled: u64,
+    pub delay_robust: Vec<(Method, Bounds)>,
 }
 
 /// The whole result, groups in order of first appearance.
@@ -83,7 +87,9 @@ pub struct LossRow<'a> {
     /// The group's key bytes (`None` without a group column).
     pub key: Option<&'a [u8]>,
     pub line: u64,
-    pub loss: f64,
+    /// `None` when the row has no label (an empty or null label cell, or loss cell): its loss
+    /// is unknown, and only the delay-robust bounds use the row.
+    pub loss: Option<f64>,
     /// True when a regression loss was above the maximum and was clipped to it.
     pub clipped: bool,
 }
@@ -95,12 +101,37 @@ pub fn for_each_loss<R: Read>(
     src: R,
     mut visit: impl FnMut(LossRow<'_>) -> Result<(), DecodeError>,
 ) -> Result<u64, DecodeError> {
-    for_each_loss_with(input, &[], src, |row, _| visit(row))
+    each_row(input, &[], src, |row, _| visit(row))
 }
 
 /// Like [`for_each_loss`], also handing over the cells of the `extra` columns (each required:
-/// a row without one is a located error).
+/// a row without one is a located error), and for commands that need every row labelled: a
+/// row without a label is a located error too.
 pub fn for_each_loss_with<R: Read>(
+    input: &Input,
+    extra: &[&str],
+    src: R,
+    mut visit: impl FnMut(LossRow<'_>, &[&[u8]]) -> Result<(), DecodeError>,
+) -> Result<u64, DecodeError> {
+    let label = match &input.source {
+        LossSource::Column(c) => c.clone(),
+        LossSource::Compare { label, .. } => label.clone(),
+    };
+    let file = input.file_label.clone();
+    each_row(input, extra, src, |row, cells| match row.loss {
+        Some(_) => visit(row, cells),
+        None => {
+            Err(DecodeError::cell(&file, row.line, &label, "missing value (this command needs every row labelled)"))
+        }
+    })
+}
+
+/// True when a label (or loss) cell says "no label yet": absent, null or blank.
+fn unlabelled(cell: Option<&[u8]>) -> bool {
+    cell.is_none_or(|c| c.iter().all(u8::is_ascii_whitespace))
+}
+
+fn each_row<R: Read>(
     input: &Input,
     extra: &[&str],
     src: R,
@@ -121,19 +152,26 @@ pub fn for_each_loss_with<R: Read>(
         let row = row?;
         last_line = row.line;
         let located = |i: usize, e: loss::CellError| DecodeError::cell(file, row.line, columns[i], e);
+        let label_at = usize::from(matches!(input.source, LossSource::Compare { .. }));
         let (value, clipped) = match (&input.source, input.loss) {
+            _ if unlabelled(row.cell(label_at)) => {
+                if label_at == 1 {
+                    required(&row, file, &columns, 0)?;
+                }
+                (None, false)
+            }
             (LossSource::Column(_), LossSpec::Column { max }) => {
                 let v = loss::parse_number(required(&row, file, &columns, 0)?).map_err(|e| located(0, e))?;
-                (loss::check_loss(v, max).map_err(|e| located(0, e))?, false)
+                (Some(loss::check_loss(v, max).map_err(|e| located(0, e))?), false)
             }
             (LossSource::Compare { .. }, LossSpec::ZeroOne) => {
-                (loss::zero_one(required(&row, file, &columns, 0)?, required(&row, file, &columns, 1)?), false)
+                (Some(loss::zero_one(required(&row, file, &columns, 0)?, required(&row, file, &columns, 1)?)), false)
             }
             (LossSource::Compare { .. }, kind) => {
                 let p = loss::parse_number(required(&row, file, &columns, 0)?).map_err(|e| located(0, e))?;
                 let y = loss::parse_number(required(&row, file, &columns, 1)?).map_err(|e| located(1, e))?;
                 let c = loss::regression(&kind, p, y);
-                (c.value, c.clipped)
+                (Some(c.value), c.clipped)
             }
             (source, kind) => unreachable!("input pairs {source:?} with {kind:?}; validation forbids it"),
         };
@@ -193,6 +231,9 @@ impl<T> Default for Groups<T> {
 struct Group {
     summary: LossSummary,
     clipped: u64,
+    /// Every row in file order, each its own group: the file order fixes every row's place,
+    /// whether or not it has a label.
+    cohort: estimate::delay_robust::Cohort,
 }
 
 /// Runs the plan over `src`.
@@ -204,9 +245,19 @@ pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
     let mut groups: Groups<Group> = Groups::new();
     let started = Instant::now();
     let last_line = for_each_loss(&plan.input, src, |row| {
-        let i = groups.slot(row.key, || Group { summary: new_summary(), clipped: 0 });
+        let i = groups.slot(row.key, || Group {
+            summary: new_summary(),
+            clipped: 0,
+            cohort: estimate::delay_robust::Cohort::default(),
+        });
         let g = &mut groups.items[i].1;
-        g.summary.push(row.loss);
+        match row.loss {
+            Some(l) => {
+                g.summary.push(l);
+                g.cohort.push_group([l], 0);
+            }
+            None => g.cohort.push_group([], 1),
+        }
         g.clipped += u64::from(row.clipped);
         Ok(())
     })?;
@@ -224,8 +275,22 @@ pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
         } else {
             plan.methods.clone()
         };
+        let unlabelled = g.cohort.unknown();
+        let mut delay_robust = Vec::new();
+        if unlabelled > 0 {
+            for &m in &methods {
+                let b = estimate::delay_robust::bounds(m, &g.cohort, loss_max, plan.confidence).map_err(|source| {
+                    BoundError::Method {
+                        file: file.to_string(),
+                        group: key.clone().unwrap_or_else(|| "(all rows)".to_string()),
+                        source,
+                    }
+                })?;
+                delay_robust.push((m, b));
+            }
+        }
         let mut bounds = Vec::with_capacity(methods.len());
-        for m in methods {
+        for m in methods.into_iter().filter(|_| g.summary.n() > 0) {
             let t = Instant::now();
             let b = estimate::bounds(m, &g.summary, plan.confidence).map_err(|source| BoundError::Method {
                 file: file.to_string(),
@@ -235,7 +300,15 @@ pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
             *per_method.entry(m).or_default() += t.elapsed();
             bounds.push((m, b));
         }
-        reports.push(GroupReport { key, n: g.summary.n(), mean: g.summary.mean(), clipped: g.clipped, bounds });
+        reports.push(GroupReport {
+            key,
+            n: g.summary.n(),
+            mean: g.summary.mean(),
+            clipped: g.clipped,
+            bounds,
+            unlabelled,
+            delay_robust,
+        });
     }
     let mut methods: Vec<_> = per_method.into_iter().collect();
     methods.sort();
@@ -250,11 +323,19 @@ pub fn to_json(report: &Report) -> serde_json::Value {
         .groups
         .iter()
         .map(|g| {
-            let mut bounds = Map::new();
-            for (m, b) in &g.bounds {
-                bounds.insert(m.name().to_string(), json!({"lower": b.lower, "upper": b.upper}));
+            let as_map = |bs: &[(Method, Bounds)]| {
+                let mut m = Map::new();
+                for (method, b) in bs {
+                    m.insert(method.name().to_string(), json!({"lower": b.lower, "upper": b.upper}));
+                }
+                Value::Object(m)
+            };
+            let mut v = json!({"group": g.key, "n": g.n, "mean": g.mean, "bounds": as_map(&g.bounds)});
+            if g.unlabelled > 0 {
+                v["unlabelled"] = json!(g.unlabelled);
+                v["delay_robust"] = as_map(&g.delay_robust);
             }
-            json!({"group": g.key, "n": g.n, "mean": g.mean, "bounds": Value::Object(bounds)})
+            v
         })
         .collect();
     json!({"confidence": report.confidence.level(), "groups": groups})
@@ -316,10 +397,32 @@ pub fn write_table<W: Write>(report: &Report, out: &mut W) -> std::io::Result<()
             report.loss.max()
         )?;
     }
-    writeln!(
-        out,
-        "assumes: losses are i.i.d. within each group, bounded by {}, and labels were not chosen by outcome",
-        report.loss.max()
-    )?;
+    for g in report.groups.iter().filter(|g| g.unlabelled > 0) {
+        writeln!(
+            out,
+            "delay-robust{}: {} rows, {} without a label (counted as 0 for the lower bound and {} for the upper):",
+            g.key.as_ref().map(|k| format!(" (group {k})")).unwrap_or_default(),
+            g.n + g.unlabelled,
+            g.unlabelled,
+            report.loss.max()
+        )?;
+        for (m, b) in &g.delay_robust {
+            writeln!(out, "  {:<20}  {:.6}  {:.6}", m.name(), b.lower, b.upper)?;
+        }
+    }
+    if report.groups.iter().any(|g| g.unlabelled > 0) {
+        writeln!(
+            out,
+            "assumes: rows are i.i.d. within each group and losses bounded by {}; the bounds above the delay-robust \
+             lines also assume the missing labels are not missing because of the outcome, the delay-robust ones do not",
+            report.loss.max()
+        )?;
+    } else {
+        writeln!(
+            out,
+            "assumes: losses are i.i.d. within each group, bounded by {}, and labels were not chosen by outcome",
+            report.loss.max()
+        )?;
+    }
     Ok(())
 }

@@ -64,7 +64,7 @@ fn read<R: Read>(plan: &Plan, src: R) -> Result<(Table, Scored), DecodeError> {
     let file = plan.input.file_label.clone();
     let nc = plan.categorical.len();
     let last = for_each_loss_with(&plan.input, &extra, src, |row, cells| {
-        t.losses.push(row.loss / b);
+        t.losses.push(row.loss.unwrap_or(0.0) / b);
         let features = nc + plan.numeric.len();
         if cells.len() > features {
             let sv = loss::parse_number(cells[features])

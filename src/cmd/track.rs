@@ -69,6 +69,9 @@ pub fn line(key: Option<&str>, t: &Tracker) -> Value {
         bounds.insert(s.name().to_string(), json!({"lower": b.lower, "upper": b.upper}));
     }
     let mut v = json!({"group": key, "n": t.n(), "mean": t.mean(), "bounds": Value::Object(bounds)});
+    if t.labelled() < t.n() {
+        v["unlabelled"] = json!(t.n() - t.labelled());
+    }
     if let (Some(e), Some(c)) = (t.exceeded(), t.change()) {
         v["sla"] = json!({
             "exceeded_since_reset": e.alarm_at().is_some(),
@@ -117,7 +120,10 @@ pub fn run<R: Read, W: Write>(plan: &Plan, src: R, out: &mut W, as_json: bool) -
     let last_line = for_each_loss(&plan.input, src, |row| {
         let i = groups.slot(row.key, || Tracker::new(spec.clone()));
         let (key, t) = &mut groups.items[i];
-        t.push(row.loss);
+        match row.loss {
+            Some(l) => t.push(l),
+            None => t.push_unknown(),
+        }
         if t.n() % plan.every == 0 && write_error.is_none() {
             write_error = emit(out, key.as_deref(), t).err();
         }
@@ -138,7 +144,9 @@ pub fn run<R: Read, W: Write>(plan: &Plan, src: R, out: &mut W, as_json: bool) -
         writeln!(
             out,
             "confidence {}: every bound above holds at every line at once with probability ≥ {0} per side; \
-             assumes the file order does not depend on the losses, losses bounded by {}, labels not chosen by outcome",
+             assumes the file order does not depend on the losses and losses bounded by {}; a row without a label \
+             counts as 0 for lower bounds and alarms and as the maximum for upper bounds, so missing labels may depend \
+             on the outcome",
             plan.confidence.level(),
             plan.input.loss.max()
         )?;

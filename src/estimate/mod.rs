@@ -12,6 +12,8 @@ pub mod anytime;
 pub mod bernstein;
 pub mod betting;
 pub mod binomial;
+pub mod delay_dependence;
+pub mod delay_robust;
 pub mod hoeffding;
 pub mod kl;
 pub mod sla;

@@ -65,6 +65,21 @@ pub mod names {
     pub const SLICE_DEVIATION: &str = "riskbound_slice_uniform_deviation";
     pub const REGISTERED_LOWER: &str = "riskbound_registered_slice_risk_lower_bound";
     pub const REGISTERED_UPPER: &str = "riskbound_registered_slice_risk_upper_bound";
+    pub const COHORT: &str = "riskbound_window_cohort_predictions";
+    pub const COHORT_UNLABELLED: &str = "riskbound_window_cohort_unlabelled";
+    pub const DELAY_BY_OUTCOME: &str = "riskbound_label_delay_by_outcome_seconds";
+    pub const DELAY_OUTCOME_SAMPLES: &str = "riskbound_label_delay_outcome_samples";
+    pub const DELAY_OUTCOME_P: &str = "riskbound_label_delay_outcome_p_value";
+    pub const DELAY_OUTCOME_DEPENDENT: &str = "riskbound_label_delay_outcome_dependent";
+}
+
+/// The `guarantee` label value of the delay-robust window bounds (with δ spending, the spent
+/// variant): true whatever the label delays depend on.
+pub fn delay_robust_guarantee(g: crate::config::WindowGuarantee) -> &'static str {
+    match g {
+        crate::config::WindowGuarantee::PerWindow => "delay-robust",
+        crate::config::WindowGuarantee::Spent => "delay-robust-spent",
+    }
 }
 
 /// The `guarantee` label value of the anytime sequences: valid at every label at once.
@@ -126,6 +141,12 @@ impl Collector for SnapshotCollector {
                         l.push(("guarantee", m.window_guarantee.as_str().to_string()));
                         v.push((l, pick(b)));
                     }
+                    for (method, b) in w.cohort.iter().flat_map(|c| &c.bounds) {
+                        let mut l = mw(&m.name, &w.name);
+                        l.push(("method", method.name().to_string()));
+                        l.push(("guarantee", delay_robust_guarantee(m.window_guarantee).to_string()));
+                        v.push((l, pick(b)));
+                    }
                 }
                 for (seq, b) in &m.anytime.bounds {
                     let mut l = mw(&m.name, SINCE_RESET);
@@ -136,8 +157,8 @@ impl Collector for SnapshotCollector {
             }
             v
         };
-        gauges(e, names::UPPER, "Upper confidence bound on the true risk. guarantee=\"per-window\": each published value on its own holds with probability at least the bound confidence; \"spent\": all published values together do; \"anytime\" (window=\"since-reset\"): the bound holds at every label since the reset at once, assuming a constant risk", per_method(true))?;
-        gauges(e, names::LOWER, "Lower confidence bound on the true risk; guarantee as for the upper bound. An anytime lower bound stays below the highest risk seen since the reset even when the risk drifts", per_method(false))?;
+        gauges(e, names::UPPER, "Upper confidence bound on the true risk. guarantee=\"per-window\": on the window's labelled samples, each published value on its own holds with probability at least the bound confidence if which labels have come does not depend on the outcomes; \"spent\": all published values together do; \"delay-robust\" (\"delay-robust-spent\"): on the window's cohort of every prediction, a missing label counted at the loss maximum, true whatever the label delays depend on; \"anytime\" (window=\"since-reset\"): the bound holds at every prediction since the reset at once, predictions taken in prediction-time order once their label_wait is over, a missing label at the loss maximum, assuming a constant risk", per_method(true))?;
+        gauges(e, names::LOWER, "Lower confidence bound on the true risk; guarantee as for the upper bound (delay-robust and anytime: a missing label counted as loss 0). An anytime lower bound stays below the highest risk seen since the reset even when the risk drifts", per_method(false))?;
         let per_window = |f: &dyn Fn(&crate::window::WindowSnapshot) -> f64,
                           anytime: &dyn Fn(&crate::window::AnytimeSnapshot) -> f64| {
             snap.models
@@ -156,13 +177,70 @@ impl Collector for SnapshotCollector {
             "Mean loss of the window's labelled samples (a point estimate, not a bound)",
             per_window(&|w| w.mean, &|a| a.mean),
         )?;
-        gauges(e, names::SAMPLES, "Labelled samples in the window", per_window(&|w| w.n as f64, &|a| a.n as f64))?;
+        gauges(
+            e,
+            names::SAMPLES,
+            "Labelled samples in the window",
+            per_window(&|w| w.n as f64, &|a| a.labelled as f64),
+        )?;
         gauges(
             e,
             names::TOTAL_LOSS,
             "Sum of the window's losses (for 0-1 loss, its error count): checks against counts kept elsewhere",
-            per_window(&|w| w.loss_sum, &|a| a.mean * a.n as f64),
+            per_window(&|w| w.loss_sum, &|a| a.loss_sum),
         )?;
+        let cohort_of = |f: &dyn Fn(&crate::window::CohortSnapshot) -> u64| {
+            snap.models
+                .iter()
+                .flat_map(|m| {
+                    m.windows
+                        .iter()
+                        .filter_map(move |w| w.cohort.as_ref().map(|c| (mw(&m.name, &w.name), f(c) as f64)))
+                        .chain(std::iter::once((mw(&m.name, SINCE_RESET), m.anytime.n as f64)))
+                })
+                .collect::<Vec<_>>()
+        };
+        gauges(
+            e,
+            names::COHORT,
+            "Predictions in the window's cohort: every prediction of its prediction-time range, labelled or not (since-reset: predictions whose label_wait is over)",
+            cohort_of(&|c| c.predictions),
+        )?;
+        gauges(
+            e,
+            names::COHORT_UNLABELLED,
+            "Predictions of the window's cohort without a label (still waiting, or expired): the delay-robust bounds count each at 0 (lower) and at the loss maximum (upper)",
+            snap.models.iter().flat_map(|m| {
+                m.windows
+                    .iter()
+                    .filter_map(move |w| w.cohort.as_ref().map(|c| (mw(&m.name, &w.name), c.unlabelled as f64)))
+                    .chain(std::iter::once((mw(&m.name, SINCE_RESET), (m.anytime.n - m.anytime.labelled) as f64)))
+            }),
+        )?;
+        let mut dd: [Vec<(Labels, f64)>; 4] = Default::default();
+        for m in &snap.models {
+            let d = &m.delay_dependence;
+            for g in &d.groups {
+                let mo = vec![("model", m.name.clone()), ("outcome", g.outcome.to_string())];
+                dd[1].push((mo.clone(), g.n as f64));
+                for (q, v) in [("0.5", g.median_s), ("0.9", g.p90_s)] {
+                    if let Some(v) = v {
+                        let mut l = mo.clone();
+                        l.push(("quantile", q.to_string()));
+                        dd[0].push((l, v));
+                    }
+                }
+            }
+            if let Some(p) = d.p_value {
+                dd[2].push((vec![("model", m.name.clone())], p));
+            }
+            dd[3].push((vec![("model", m.name.clone())], f64::from(u8::from(d.dependent))));
+        }
+        let [dq, dn, dp, ddep] = dd;
+        gauges(e, names::DELAY_BY_OUTCOME, "Label delay quantiles of the newest labelled samples by outcome (0-1 loss: error, correct; other losses: above_median, at_or_below_median)", dq)?;
+        gauges(e, names::DELAY_OUTCOME_SAMPLES, "Labelled samples behind each outcome's delay quantiles", dn)?;
+        gauges(e, names::DELAY_OUTCOME_P, "p-value of the two-sample Kolmogorov-Smirnov test that label delays do not depend on the outcome (a per-look test; absent while an outcome has no labelled sample)", dp)?;
+        gauges(e, names::DELAY_OUTCOME_DEPENDENT, "1 when the delay test rejects at level 1 - confidence: label delays depend on outcomes, so the labelled-only bounds (guarantee per-window or spent) may be far too optimistic; the delay-robust bounds and anytime alarms still hold", ddep)?;
         let model = |m: &str| -> Labels { vec![("model", m.to_string())] };
         let mg = |m: &str, g: &str| -> Labels { vec![("model", m.to_string()), ("guarantee", g.to_string())] };
         gauges(
@@ -406,12 +484,15 @@ mod tests {
                 bounds: vec![],
                 state: None,
                 slices: None,
+                cohort: None,
             }],
             window_guarantee: crate::config::WindowGuarantee::PerWindow,
             window_confidence: 0.95,
             anytime: crate::window::AnytimeSnapshot {
                 n: 0,
+                labelled: 0,
                 mean: 0.0,
+                loss_sum: 0.0,
                 bounds: vec![],
                 alarms: vec![],
                 reset_ms: None,
@@ -421,6 +502,7 @@ mod tests {
             awaiting: 0,
             label_coverage: None,
             last_commit_ms: None,
+            delay_dependence: crate::estimate::delay_dependence::test(&[], 1.0, true, 0.05),
         };
         let snap: SharedSnapshot = Arc::new(RwLock::new(Arc::new(Snapshot { models: vec![model] })));
         let text = render(&registry(snap, Arc::new(Health::default())));

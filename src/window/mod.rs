@@ -6,11 +6,13 @@
 
 pub mod store;
 
-use crate::config::{ModelConfig, SlaConfig, WindowGuarantee};
+use crate::config::{DecideOn, ModelConfig, SlaConfig, WindowGuarantee};
 use crate::estimate::anytime::Sequence;
+use crate::estimate::delay_dependence::{self, DelayDependence};
+use crate::estimate::delay_robust::{self, Cohort};
 use crate::estimate::sla::{self, SlaReason, SlaState};
 use crate::estimate::{self, Bounds, Confidence, LossSummary, Method};
-pub use store::{Batch, Counters, FileOutcome, Kind, Store, StoreError, TrackerState};
+pub use store::{Batch, CohortRange, Counters, FileOutcome, Kind, Store, StoreError, TrackerState};
 
 /// The anytime alarms. The names are the `test` label values.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -50,8 +52,12 @@ pub struct AlarmSnapshot {
 /// The anytime-valid view of a model since its reset point.
 #[derive(Clone, Debug, PartialEq)]
 pub struct AnytimeSnapshot {
+    /// Predictions whose label_wait is over, taken since the reset (labelled or not).
     pub n: u64,
+    /// Of those, the ones with a label, and the mean and sum of their losses.
+    pub labelled: u64,
     pub mean: f64,
+    pub loss_sum: f64,
     pub bounds: Vec<(Sequence, Bounds)>,
     pub alarms: Vec<AlarmSnapshot>,
     pub reset_ms: Option<i64>,
@@ -84,7 +90,9 @@ impl AnytimeSnapshot {
         }
         AnytimeSnapshot {
             n: t.n(),
+            labelled: t.labelled(),
             mean: t.mean(),
+            loss_sum: t.labelled_sum(),
             bounds: if t.n() == 0 { Vec::new() } else { Sequence::ALL.iter().map(|&s| (s, t.bounds(s))).collect() },
             alarms,
             reset_ms: state.reset_ms,
@@ -106,6 +114,35 @@ pub struct WindowSnapshot {
     pub state: Option<(SlaState, SlaReason)>,
     /// The slice search, when the model configures one.
     pub slices: Option<SliceSnapshot>,
+    /// The window's cohort and its delay-robust bounds (`None` before the first prediction).
+    pub cohort: Option<CohortSnapshot>,
+}
+
+/// A window's cohort: every prediction of its prediction-time range, labelled or not.
+#[derive(Clone, Debug, PartialEq)]
+pub struct CohortSnapshot {
+    pub range: CohortRange,
+    pub predictions: u64,
+    pub unlabelled: u64,
+    /// Bounds with every unknown loss at 0 (lower) and at B (upper), at the window confidence.
+    pub bounds: Vec<(Method, Bounds)>,
+}
+
+/// The delay-robust bounds of a cohort by every method that applies (as [`window_bounds`]).
+pub fn cohort_bounds(cohort: &Cohort, model: &ModelConfig, confidence: Confidence) -> Vec<(Method, Bounds)> {
+    let mut out = Vec::new();
+    if cohort.n() == 0 {
+        return out;
+    }
+    for m in Method::ALL {
+        if m == Method::ClopperPearson && !model.loss.is_binary() {
+            continue;
+        }
+        if let Ok(b) = delay_robust::bounds(m, cohort, model.loss.max(), confidence) {
+            out.push((m, b));
+        }
+    }
+    out
 }
 
 /// One exported slice, in loss units.
@@ -231,7 +268,13 @@ pub struct ModelSnapshot {
     /// joined / (joined + expired): the fraction of decided predictions that got a label.
     pub label_coverage: Option<f64>,
     pub last_commit_ms: Option<i64>,
+    /// Whether label delays differ by outcome, on the newest kept labelled samples.
+    pub delay_dependence: DelayDependence,
 }
+
+/// The newest labelled samples (by prediction time) the delay-dependence test reads: enough for
+/// power, few enough that sorting them every publish stays cheap.
+pub const DELAY_TEST_SAMPLES: usize = 50_000;
 
 /// Everything /metrics shows, computed once per ingest round and read by every scrape.
 #[derive(Clone, Debug, Default)]
@@ -284,17 +327,32 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
     let mut windows = Vec::with_capacity(model.windows.len());
     for w in &model.windows {
         // One read of the window serves the bounds and, when configured, the slice search.
-        let rows = store.window_rows(&model.name, w.kind)?;
+        let (rows, cohort) = store.window_view(&model.name, w, model.label_wait_ms)?;
         let losses: Vec<f64> = rows.iter().map(|(l, _)| *l).collect();
         let (summary, mut bounds) = window_bounds(&losses, model, window_confidence);
+        let cohort = cohort.map(|(range, c)| CohortSnapshot {
+            range,
+            predictions: c.n(),
+            unlabelled: c.unknown(),
+            bounds: if spent_out { Vec::new() } else { cohort_bounds(&c, model, window_confidence) },
+        });
         if spent_out {
             bounds.clear();
         }
-        let mut state = model.sla.as_ref().map(|sla| match bounds.iter().find(|(m, _)| *m == sla.method) {
-            Some((_, b)) => {
-                sla::decide(*b, summary.n(), sla.max_risk, sla.min_samples, label_coverage, sla.min_label_coverage)
+        let mut state = model.sla.as_ref().map(|sla| {
+            let deciding = match sla.decide_on {
+                DecideOn::LabelledOnly => &bounds,
+                DecideOn::DelayRobust => match &cohort {
+                    Some(c) => &c.bounds,
+                    None => return (SlaState::Inconclusive, SlaReason::TooFewSamples),
+                },
+            };
+            match deciding.iter().find(|(m, _)| *m == sla.method) {
+                Some((_, b)) => {
+                    sla::decide(*b, summary.n(), sla.max_risk, sla.min_samples, label_coverage, sla.min_label_coverage)
+                }
+                None => (SlaState::Inconclusive, SlaReason::TooFewSamples),
             }
-            None => (SlaState::Inconclusive, SlaReason::TooFewSamples),
         });
         let slices = match &model.slices {
             Some(_) => {
@@ -322,8 +380,15 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
             bounds,
             state,
             slices,
+            cohort,
         });
     }
+    let delay_dependence = delay_dependence::test(
+        &store.delay_rows(&model.name, DELAY_TEST_SAMPLES)?,
+        model.loss.max(),
+        model.loss.is_binary(),
+        model.confidence.delta(),
+    );
     Ok(ModelSnapshot {
         name: model.name.clone(),
         confidence: model.confidence.level(),
@@ -337,5 +402,6 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
         label_coverage,
         last_commit_ms: store.last_commit_ms(&model.name)?,
         counters,
+        delay_dependence,
     })
 }

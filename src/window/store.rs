@@ -11,8 +11,9 @@ use std::path::Path;
 
 use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
 
-use crate::config::{ModelConfig, WindowKind};
+use crate::config::{ModelConfig, WindowConfig, WindowKind};
 use crate::estimate::anytime::Tracker;
+use crate::estimate::delay_robust::Cohort;
 use crate::ingest::records::{Record, Reject, RejectReason};
 use crate::loss::{self, LossSpec};
 
@@ -112,6 +113,47 @@ type TrackerRow = (Option<String>, Option<i64>, u64);
 /// A window's sample as read back: its loss and, if recorded, its slice features.
 pub type WindowRow = (f64, Option<Vec<String>>);
 
+/// A labelled sample's loss and label delay (ms), for the test of whether delays depend on
+/// outcomes.
+pub type DelayRow = (f64, i64);
+
+/// The whole seconds of prediction time a window's cohort covers, inclusive.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct CohortRange {
+    pub from_sec: i64,
+    pub to_sec: i64,
+}
+
+/// Where a window's cohort starts: `anchor` is the newest prediction second it may reach, and
+/// `desc` lists (second, predictions) at or below the anchor, newest first (only `last` windows
+/// read it). The cohort is chosen by prediction time alone, never by which labels came.
+pub fn cohort_start(kind: WindowKind, anchor: i64, desc: impl Iterator<Item = (i64, u64)>) -> Option<i64> {
+    match kind {
+        WindowKind::SpanMs(ms) => Some(anchor - (ms.max(1) + 999) / 1000 + 1),
+        WindowKind::Last(n) => {
+            let (mut total, mut start) = (0u64, None);
+            for (sec, k) in desc {
+                total += k;
+                start = Some(sec);
+                if total >= n {
+                    break;
+                }
+            }
+            start
+        }
+    }
+}
+
+/// The newest prediction second a window reaches: the newest prediction's, or for a mature
+/// window the one whose label_wait is over.
+fn cohort_anchor(w: &WindowConfig, newest_sec: i64, label_wait_ms: i64) -> i64 {
+    if w.mature {
+        newest_sec - (label_wait_ms + 999) / 1000
+    } else {
+        newest_sec
+    }
+}
+
 /// A joined sample about to be stored.
 struct NewSample<'a> {
     id: &'a str,
@@ -136,6 +178,11 @@ struct Joins {
     expired_to: i64,
     /// The samples it stored, in join order, keyed as in [`KeptSamples`].
     kept: Vec<((i64, i64), Kept)>,
+    /// Predictions it added, per prediction second (the cohorts' denominators).
+    counted: BTreeMap<i64, u64>,
+    /// Predictions whose label_wait it closed, in prediction-time order: the loss, or `None`
+    /// when no label came. The anytime tracker takes them in this order.
+    matured: Vec<Option<f64>>,
 }
 
 /// The counters of one model, as exported.
@@ -173,6 +220,8 @@ pub struct Batch<'a> {
 struct Kept {
     loss: f64,
     features: Option<Vec<String>>,
+    /// t_label − t_pred, ms.
+    delay_ms: i64,
 }
 
 /// Slice features as stored (a JSON array of strings); `None` when absent or unreadable.
@@ -183,6 +232,15 @@ fn parse_features(json: Option<&str>) -> Option<Vec<String>> {
 /// One model's kept samples by (t_pred, seq): the order the windows cut them in.
 type KeptSamples = BTreeMap<(i64, i64), Kept>;
 
+/// One model's state in memory: its kept samples, its predictions per prediction second, and
+/// the first second whose count is complete (state upgraded from a layout without counts).
+#[derive(Default)]
+struct Memory {
+    kept: KeptSamples,
+    counts: BTreeMap<i64, u64>,
+    counted_from: Option<i64>,
+}
+
 /// The durable state.
 pub struct Store {
     conn: Connection,
@@ -190,7 +248,7 @@ pub struct Store {
     /// then kept in step with it after every commit (the same inserts, the same pruning), so a
     /// publish cuts its windows from memory instead of reading them back from SQLite: with a
     /// window of millions of samples that read took seconds, once a second.
-    kept: std::cell::RefCell<std::collections::HashMap<String, KeptSamples>>,
+    kept: std::cell::RefCell<std::collections::HashMap<String, Memory>>,
 }
 
 const SCHEMA: &str = "
@@ -217,7 +275,10 @@ CREATE TABLE IF NOT EXISTS counter (
     model TEXT NOT NULL, name TEXT NOT NULL, value REAL NOT NULL,
     PRIMARY KEY (model, name));
 CREATE TABLE IF NOT EXISTS model_meta (
-    model TEXT PRIMARY KEY, watermark INTEGER, last_commit_ms INTEGER, expired_to INTEGER);
+    model TEXT PRIMARY KEY, watermark INTEGER, last_commit_ms INTEGER, expired_to INTEGER, counted_from INTEGER);
+CREATE TABLE IF NOT EXISTS pred_count (
+    model TEXT NOT NULL, sec INTEGER NOT NULL, n INTEGER NOT NULL,
+    PRIMARY KEY (model, sec)) WITHOUT ROWID;
 CREATE TABLE IF NOT EXISTS tracker (
     model TEXT PRIMARY KEY, state TEXT, reset_ms INTEGER, resets INTEGER NOT NULL DEFAULT 0);
 ";
@@ -258,7 +319,7 @@ fn loss_of(spec: &LossSpec, prediction: &str, label: &str) -> Result<f64, Reject
 }
 
 /// The layout version this build writes (`PRAGMA user_version`).
-const LAYOUT: i64 = 2;
+const LAYOUT: i64 = 3;
 
 /// Brings state written by an older build up to this layout, once, in one transaction.
 /// Columns added later are NULL for old rows (no slice features recorded, no expiry cutoff
@@ -271,9 +332,12 @@ fn migrate(conn: &mut Connection) -> rusqlite::Result<()> {
         return Ok(());
     }
     let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
-    for (table, column) in
-        [("pred", "features TEXT"), ("sample", "features TEXT"), ("model_meta", "expired_to INTEGER")]
-    {
+    for (table, column) in [
+        ("pred", "features TEXT"),
+        ("sample", "features TEXT"),
+        ("model_meta", "expired_to INTEGER"),
+        ("model_meta", "counted_from INTEGER"),
+    ] {
         let name = column.split(' ').next().expect("a column has a name");
         let has: bool =
             tx.prepare(&format!("SELECT 1 FROM pragma_table_info('{table}') WHERE name = '{name}'"))?.exists([])?;
@@ -287,6 +351,24 @@ fn migrate(conn: &mut Connection) -> rusqlite::Result<()> {
          GROUP BY model ON CONFLICT (model, name) DO UPDATE SET value = excluded.value",
         [AWAITING],
     )?;
+    if version < 3 {
+        // Layout 3 counts predictions per second, for the delay-robust cohorts. The predictions
+        // still held are every one from the oldest held second on (decided ones are deleted
+        // only from the oldest end), so counts are complete from the second after it; cohorts
+        // never reach below that (`counted_from`).
+        tx.execute_batch(
+            "DELETE FROM pred_count;
+             INSERT INTO pred_count (model, sec, n)
+                 SELECT model, t_pred / 1000 - (t_pred % 1000 < 0), COUNT(*) FROM pred GROUP BY 1, 2;
+             INSERT INTO model_meta (model) SELECT DISTINCT model FROM pred WHERE true
+                 ON CONFLICT (model) DO NOTHING;
+             INSERT INTO model_meta (model) SELECT DISTINCT model FROM sample WHERE true
+                 ON CONFLICT (model) DO NOTHING;
+             UPDATE model_meta SET counted_from = COALESCE(
+                 (SELECT MIN(sec) + 1 FROM pred_count WHERE pred_count.model = model_meta.model),
+                 (SELECT MAX(t_pred) / 1000 + 1 FROM sample WHERE sample.model = model_meta.model));",
+        )?;
+    }
     tx.execute_batch(&format!("PRAGMA user_version = {LAYOUT}"))?;
     tx.commit()
 }
@@ -500,6 +582,26 @@ impl Store {
         let mut expired_to = joins.expired_to;
         if watermark > i64::MIN {
             let cutoff = watermark.saturating_sub(model.label_wait_ms).max(expired_to);
+            // Their wait is over: each is labelled for good or never will be. In prediction-time
+            // order (then id), which the outcomes cannot change, they go to the anytime tracker.
+            {
+                let mut st = tx.prepare_cached(
+                    "SELECT state, value, label FROM pred WHERE model = ?1 AND t_pred >= ?2 AND t_pred < ?3
+                     ORDER BY t_pred, id",
+                )?;
+                let rows = st.query_map(params![m, expired_to, cutoff], |r| {
+                    Ok((r.get::<_, i64>(0)?, r.get::<_, String>(1)?, r.get::<_, Option<String>>(2)?))
+                })?;
+                for row in rows {
+                    let (state, value, label) = row?;
+                    joins.matured.push(match (state, label) {
+                        (LABELLED, Some(label)) => {
+                            Some(loss_of(&model.loss, &value, &label).unwrap_or(model.loss.max()))
+                        }
+                        _ => None,
+                    });
+                }
+            }
             let expired = tx
                 .prepare_cached(
                     "UPDATE pred SET state = ?1 WHERE model = ?2 AND t_pred >= ?3 AND t_pred < ?4 AND state = ?5",
@@ -552,15 +654,25 @@ impl Store {
                 if expired_to == i64::MIN { None } else { Some(expired_to) }
             ],
         )?;
+        for (sec, n) in &joins.counted {
+            tx.prepare_cached(
+                "INSERT INTO pred_count (model, sec, n) VALUES (?1, ?2, ?3)
+                 ON CONFLICT (model, sec) DO UPDATE SET n = n + excluded.n",
+            )?
+            .execute(params![m, sec, *n as i64])?;
+        }
         let keep_from = Self::prune_samples(&tx, model)?;
-        let losses: Vec<f64> = joins.kept.iter().map(|(_, k)| k.loss).collect();
-        out.tracker_restarted = Self::advance_tracker(&tx, model, &losses, now_ms)?;
+        out.tracker_restarted = Self::advance_tracker(&tx, model, &joins.matured, now_ms)?;
         tx.commit()?;
         // Only once the commit stands: the samples in memory never run ahead of the database.
-        if let Some(kept) = self.kept.get_mut().get_mut(m) {
-            kept.extend(joins.kept);
+        if let Some(mem) = self.kept.get_mut().get_mut(m) {
+            mem.kept.extend(joins.kept);
+            for (sec, n) in joins.counted {
+                *mem.counts.entry(sec).or_default() += n;
+            }
             if keep_from > i64::MIN {
-                *kept = kept.split_off(&(keep_from, i64::MIN));
+                mem.kept = mem.kept.split_off(&(keep_from, i64::MIN));
+                mem.counts = mem.counts.split_off(&keep_from.div_euclid(1000));
             }
         }
         Ok(out)
@@ -572,7 +684,7 @@ impl Store {
             "INSERT INTO sample (model, id, t_pred, t_label, loss, features) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
         )?
         .execute(params![model, id, t_pred, t_label, loss, features])?;
-        let kept = Kept { loss, features: parse_features(features) };
+        let kept = Kept { loss, features: parse_features(features), delay_ms: t_label - t_pred };
         joins.kept.push(((t_pred, tx.last_insert_rowid()), kept));
         joins.delays.push(((t_label - t_pred).max(0) as f64) / 1000.0);
         Ok(())
@@ -591,19 +703,31 @@ impl Store {
         let Some((state, reset_ms, resets)) = Self::tracker_row(tx, &model.name)? else { return Ok((None, false)) };
         let fresh = TrackerState { tracker: Tracker::new(model.tracker_spec()), reset_ms, resets };
         let Some(text) = state else { return Ok((Some(fresh), false)) };
-        let tracker: Tracker = serde_json::from_str(&text)
-            .map_err(|e| StoreError::Tracker { model: model.name.clone(), reason: e.to_string() })?;
+        let bad = |e: serde_json::Error| StoreError::Tracker { model: model.name.clone(), reason: e.to_string() };
+        let value: serde_json::Value = serde_json::from_str(&text).map_err(bad)?;
+        if !Tracker::is_current_layout(&value) {
+            return Ok((None, true));
+        }
+        let tracker: Tracker = serde_json::from_value(value).map_err(bad)?;
         if *tracker.spec() != model.tracker_spec() {
             return Ok((None, true));
         }
         Ok((Some(TrackerState { tracker, reset_ms, resets }), false))
     }
 
-    /// Feeds the file's new samples, in join order, to the model's anytime tracker, inside the
-    /// file's transaction: a kill at any point leaves the tracker exactly in step with the
-    /// samples. Returns true when stored state for other settings was restarted.
-    fn advance_tracker(tx: &Connection, model: &ModelConfig, losses: &[f64], now_ms: i64) -> Result<bool, StoreError> {
-        if losses.is_empty() {
+    /// Feeds the predictions whose label_wait this file closed, in prediction-time order, to the
+    /// model's anytime tracker, inside the file's transaction: a kill at any point leaves the
+    /// tracker exactly in step with the state. Join order would not do: when label delays depend
+    /// on outcomes (a late parcel is known late only after its promised time), the order of joins
+    /// depends on the losses, and the tracker's guarantees assume it does not.
+    /// Returns true when stored state for other settings was restarted.
+    fn advance_tracker(
+        tx: &Connection,
+        model: &ModelConfig,
+        matured: &[Option<f64>],
+        now_ms: i64,
+    ) -> Result<bool, StoreError> {
+        if matured.is_empty() {
             return Ok(false);
         }
         let (stored, mismatched) = Self::stored_tracker(tx, model)?;
@@ -619,8 +743,11 @@ impl Store {
                 (state, mismatched)
             }
         };
-        for &l in losses {
-            state.tracker.push(l);
+        for &l in matured {
+            match l {
+                Some(l) => state.tracker.push(l),
+                None => state.tracker.push_unknown(),
+            }
         }
         let text = serde_json::to_string(&state.tracker)
             .map_err(|e| StoreError::Tracker { model: model.name.clone(), reason: e.to_string() })?;
@@ -718,10 +845,15 @@ impl Store {
             }
             return Ok(Err(RejectReason::DuplicatePrediction));
         }
+        *joins.counted.entry(rec.time_ms.div_euclid(1000)).or_default() += 1;
         if state == EXPIRED {
             joins.expired += 1;
+            joins.matured.push(None);
         } else if state == AWAITING {
             joins.awaiting += 1;
+        } else if late {
+            // Labelled on arrival but already past the cutoff: its wait is over now.
+            joins.matured.push(joined.map(|j| j.2));
         }
         match (joined, &orphan) {
             (Some((t_label, _, l)), _) => {
@@ -804,10 +936,10 @@ impl Store {
     fn prune_samples(tx: &Connection, model: &ModelConfig) -> rusqlite::Result<i64> {
         let m = model.name.as_str();
         let newest: Option<i64> = tx.query_row("SELECT MAX(t_pred) FROM sample WHERE model = ?1", [m], |r| r.get(0))?;
-        let Some(newest) = newest else { return Ok(i64::MIN) };
         let count = Self::sample_count(tx, m)?;
         let mut keep_from = i64::MAX;
-        for w in &model.windows {
+        for w in model.windows.iter().filter(|w| !w.mature) {
+            let Some(newest) = newest else { break };
             let from = match w.kind {
                 WindowKind::SpanMs(ms) => newest.saturating_sub(ms),
                 // Fewer samples than the window holds: nothing to cut, and no O(n) OFFSET scan.
@@ -823,9 +955,47 @@ impl Store {
             };
             keep_from = keep_from.min(from);
         }
+        // Each window's cohort too: every prediction second from its start on, and its samples.
+        let newest_sec: Option<i64> =
+            tx.query_row("SELECT MAX(sec) FROM pred_count WHERE model = ?1", [m], |r| r.get(0))?;
+        if let Some(newest_sec) = newest_sec {
+            for w in &model.windows {
+                let anchor = cohort_anchor(w, newest_sec, model.label_wait_ms);
+                let start = match w.kind {
+                    WindowKind::SpanMs(_) => cohort_start(w.kind, anchor, std::iter::empty()),
+                    WindowKind::Last(_) => {
+                        let mut st = tx.prepare_cached(
+                            "SELECT sec, n FROM pred_count WHERE model = ?1 AND sec <= ?2 ORDER BY sec DESC",
+                        )?;
+                        let rows =
+                            st.query_map(params![m, anchor], |r| Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?)))?;
+                        let (mut desc, mut total) = (Vec::new(), 0u64);
+                        for row in rows {
+                            let (sec, n) = row?;
+                            desc.push((sec, n.max(0) as u64));
+                            total += n.max(0) as u64;
+                            if matches!(w.kind, WindowKind::Last(want) if total >= want) {
+                                break;
+                            }
+                        }
+                        cohort_start(w.kind, anchor, desc.into_iter())
+                    }
+                };
+                if let Some(start) = start {
+                    keep_from = keep_from.min(start.saturating_mul(1000));
+                }
+            }
+        }
+        if keep_from == i64::MAX {
+            return Ok(i64::MIN);
+        }
         let deleted =
             tx.prepare_cached("DELETE FROM sample WHERE model = ?1 AND t_pred < ?2")?.execute(params![m, keep_from])?;
         bump(tx, m, "samples_kept", -(deleted as f64))?;
+        if keep_from > i64::MIN {
+            tx.prepare_cached("DELETE FROM pred_count WHERE model = ?1 AND sec < ?2")?
+                .execute(params![m, keep_from.div_euclid(1000)])?;
+        }
         Ok(keep_from)
     }
 
@@ -848,25 +1018,49 @@ impl Store {
         Ok(self.window_rows(model, kind)?.into_iter().map(|(l, _)| l).collect())
     }
 
+    /// The model's state in memory, read from the database the first time it is needed.
+    fn memory(&self, model: &str) -> Result<std::cell::RefMut<'_, Memory>, StoreError> {
+        let mut all = self.kept.borrow_mut();
+        if !all.contains_key(model) {
+            let mut mem = Memory::default();
+            let mut st =
+                self.conn.prepare_cached("SELECT t_pred, seq, loss, features, t_label FROM sample WHERE model = ?1")?;
+            let rows = st.query_map([model], |r| {
+                let features: Option<String> = r.get(3)?;
+                let t_pred: i64 = r.get(0)?;
+                let kept = Kept {
+                    loss: r.get(2)?,
+                    features: parse_features(features.as_deref()),
+                    delay_ms: r.get::<_, i64>(4)? - t_pred,
+                };
+                Ok(((t_pred, r.get::<_, i64>(1)?), kept))
+            })?;
+            for row in rows {
+                let (k, v) = row?;
+                mem.kept.insert(k, v);
+            }
+            let mut st = self.conn.prepare_cached("SELECT sec, n FROM pred_count WHERE model = ?1")?;
+            for row in st.query_map([model], |r| Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?)))? {
+                let (sec, n) = row?;
+                mem.counts.insert(sec, n.max(0) as u64);
+            }
+            mem.counted_from = self
+                .conn
+                .query_row("SELECT counted_from FROM model_meta WHERE model = ?1", [model], |r| {
+                    r.get::<_, Option<i64>>(0)
+                })
+                .optional()?
+                .flatten();
+            all.insert(model.to_string(), mem);
+        }
+        Ok(std::cell::RefMut::map(all, |a| a.get_mut(model).expect("inserted above")))
+    }
+
     /// The losses of one window with their slice features (the stored JSON parsed; `None` for
     /// rows stored without features, before slices were configured), in arrival order.
     pub fn window_rows(&self, model: &str, kind: WindowKind) -> Result<Vec<WindowRow>, StoreError> {
-        let mut all = self.kept.borrow_mut();
-        if !all.contains_key(model) {
-            let mut st = self.conn.prepare_cached("SELECT t_pred, seq, loss, features FROM sample WHERE model = ?1")?;
-            let rows = st.query_map([model], |r| {
-                let features: Option<String> = r.get(3)?;
-                let kept = Kept { loss: r.get(2)?, features: parse_features(features.as_deref()) };
-                Ok(((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?), kept))
-            })?;
-            let mut kept = KeptSamples::new();
-            for row in rows {
-                let (k, v) = row?;
-                kept.insert(k, v);
-            }
-            all.insert(model.to_string(), kept);
-        }
-        let kept = &all[model];
+        let mem = self.memory(model)?;
+        let kept = &mem.kept;
         // The newest `n` by (t_pred, seq), or every sample within the span of the newest t_pred.
         let mut picked: Vec<(&(i64, i64), &Kept)> = match kind {
             WindowKind::Last(n) => kept.iter().rev().take(n.min(usize::MAX as u64) as usize).collect(),
@@ -878,6 +1072,86 @@ impl Store {
         // Arrival order, as betting needs: seq is the order samples were stored in.
         picked.sort_unstable_by_key(|(k, _)| k.1);
         Ok(picked.into_iter().map(|(_, v)| (v.loss, v.features.clone())).collect())
+    }
+
+    /// One window as the estimators read it: its labelled samples (as [`Store::window_rows`];
+    /// for a mature window, the labelled samples of its cohort) and its cohort, every prediction
+    /// of the window's prediction-time range with its loss or none (`None` before the first
+    /// prediction, or when the range lies wholly before the counts begin).
+    pub fn window_view(
+        &self,
+        model: &str,
+        w: &WindowConfig,
+        label_wait_ms: i64,
+    ) -> Result<(Vec<WindowRow>, Option<(CohortRange, Cohort)>), StoreError> {
+        let cohort = self.cohort(model, w, label_wait_ms)?;
+        let rows = if w.mature {
+            let mem = self.memory(model)?;
+            match &cohort {
+                Some((r, _)) => {
+                    let mut picked: Vec<(&(i64, i64), &Kept)> = mem
+                        .kept
+                        .range(
+                            (r.from_sec.saturating_mul(1000), i64::MIN)
+                                ..(r.to_sec.saturating_add(1).saturating_mul(1000), i64::MIN),
+                        )
+                        .collect();
+                    picked.sort_unstable_by_key(|(k, _)| k.1);
+                    picked.into_iter().map(|(_, v)| (v.loss, v.features.clone())).collect()
+                }
+                None => Vec::new(),
+            }
+        } else {
+            self.window_rows(model, w.kind)?
+        };
+        Ok((rows, cohort))
+    }
+
+    /// A window's cohort: its prediction-time range (whole seconds, chosen from prediction
+    /// times alone) and every prediction in it, by second, with the known losses.
+    fn cohort(
+        &self,
+        model: &str,
+        w: &WindowConfig,
+        label_wait_ms: i64,
+    ) -> Result<Option<(CohortRange, Cohort)>, StoreError> {
+        let mem = self.memory(model)?;
+        let Some((&newest, _)) = mem.counts.last_key_value() else { return Ok(None) };
+        let anchor = cohort_anchor(w, newest, label_wait_ms);
+        let desc = mem.counts.range(..=anchor).rev().map(|(&s, &n)| (s, n));
+        let Some(mut from) = cohort_start(w.kind, anchor, desc) else { return Ok(None) };
+        if let Some(c) = mem.counted_from {
+            from = from.max(c);
+        }
+        if from > anchor {
+            return Ok(None);
+        }
+        let range = CohortRange { from_sec: from, to_sec: anchor };
+        let mut cohort = Cohort::default();
+        let mut samples = mem.kept.range((from.saturating_mul(1000), i64::MIN)..).peekable();
+        for (&sec, &n) in mem.counts.range(from..=anchor) {
+            let end = (sec + 1).saturating_mul(1000);
+            let mut known = Vec::new();
+            while let Some((&(t, _), k)) = samples.peek() {
+                if t >= end {
+                    break;
+                }
+                known.push(k.loss);
+                samples.next();
+            }
+            // More labelled samples than counted predictions can only come from state written
+            // before the counts existed; the count then is at least what is known.
+            let unknown = n.saturating_sub(known.len() as u64);
+            cohort.push_group(known, unknown);
+        }
+        Ok(Some((range, cohort)))
+    }
+
+    /// The loss and label delay of the newest `limit` labelled samples by prediction time (a
+    /// choice by prediction time alone, so it cannot favour either outcome).
+    pub fn delay_rows(&self, model: &str, limit: usize) -> Result<Vec<DelayRow>, StoreError> {
+        let mem = self.memory(model)?;
+        Ok(mem.kept.values().rev().take(limit).map(|k| (k.loss, k.delay_ms)).collect())
     }
 
     /// Predictions still waiting for a label.

@@ -152,7 +152,7 @@ pub fn model_config() -> ModelConfig {
         confidence: Confidence::new(0.95).unwrap(),
         label_wait_ms: WAIT_MS,
         future_tolerance_ms: i64::MAX / 4,
-        windows: vec![WindowConfig { name: "all".into(), kind: WindowKind::Last(u64::MAX / 4) }],
+        windows: vec![WindowConfig { name: "all".into(), kind: WindowKind::Last(u64::MAX / 4), mature: false }],
         window_guarantee: riskbound::config::WindowGuarantee::PerWindow,
         sla: None,
         alerts: Default::default(),

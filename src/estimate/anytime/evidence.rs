@@ -5,36 +5,73 @@ use serde::{Deserialize, Serialize};
 
 use super::TRUNCATION;
 
+/// Weight of the newest loss in the bets' recent mean and variance: an exponentially weighted
+/// average whose effective memory is about 2/[`RECENT_WEIGHT`] − 1 ≈ 199 losses.
+pub const RECENT_WEIGHT: f64 = 0.01;
+
+/// No bet before this many losses: a recent mean of a handful of losses is mostly noise.
+pub const BET_AFTER: u64 = 20;
+
 /// "The risk exceeded θ since the reset": the betting e-process for H0 "every conditional risk
-/// is ≤ θ" (METHODS.md §2.6). K_t = Π (1 + min(λ_i, c/θ)(x_i − θ)) with the sequence bets λ_i;
-/// under H0 each factor has conditional mean ≤ 1, so K is a nonnegative supermartingale and,
-/// by Ville's inequality, P(K ever reaches 1/α) ≤ α, with no stationarity assumption. The alarm
-/// latches. O(1) per loss.
+/// is ≤ θ" (METHODS.md §2.6). K_t = Π (1 + λ_i (x_i − θ)); under H0 each factor has conditional
+/// mean ≤ 1 for any predictable λ_i ∈ [0, c/θ], so K is a nonnegative supermartingale and, by
+/// Ville's inequality, P(K ever reaches 1/α) ≤ α, with no stationarity assumption.
+///
+/// The bet is chosen for power against a rise: the plug-in Kelly bet
+/// λ_t = clip((m − θ)/(v + (m − θ)²), 0, c/θ), with m and v an exponentially weighted mean and
+/// variance of the past losses (memory ≈ 200), and no bet before [`BET_AFTER`] losses. When the
+/// recent past says the risk is below θ the bet is 0, so a healthy period costs no evidence and
+/// a later rise is caught from where the capital stood. (Borrowing the confidence sequence's
+/// bet instead, which is positive whatever the sign of m − θ, drains the capital through every
+/// healthy stretch.) The alarm latches. O(1) per loss.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct SlaTest {
     theta: f64,
     log_capital: f64,
     /// The loss count at which the alarm was raised, if it was.
     alarm_at: Option<u64>,
+    /// Losses seen, and their exponentially weighted mean and second moment.
+    seen: u64,
+    recent_mean: f64,
+    recent_sq: f64,
 }
 
 impl SlaTest {
     /// A test of "risk ≤ θ", θ scaled to [0, 1].
     pub fn new(theta: f64) -> SlaTest {
-        SlaTest { theta, log_capital: 0.0, alarm_at: None }
+        SlaTest { theta, log_capital: 0.0, alarm_at: None, seen: 0, recent_mean: 0.0, recent_sq: 0.0 }
     }
 
     pub fn theta(&self) -> f64 {
         self.theta
     }
 
-    /// Bets on loss number `t` (1-based) with the sequence bet `bet`.
-    pub fn push(&mut self, t: u64, x: f64, bet: f64, ln_inv_alpha: f64) {
-        let lambda = if self.theta > 0.0 { bet.min(TRUNCATION / self.theta) } else { bet };
+    /// The bet for the next loss, known before it is seen.
+    pub fn bet(&self) -> f64 {
+        if self.seen < BET_AFTER {
+            return 0.0;
+        }
+        let d = self.recent_mean - self.theta;
+        if d <= 0.0 {
+            return 0.0;
+        }
+        let v = (self.recent_sq - self.recent_mean * self.recent_mean).max(0.0);
+        let cap = if self.theta > 0.0 { TRUNCATION / self.theta } else { f64::MAX };
+        (d / (v + d * d)).min(cap)
+    }
+
+    /// Bets on loss number `t` (1-based).
+    pub fn push(&mut self, t: u64, x: f64, ln_inv_alpha: f64) {
+        let lambda = self.bet();
         self.log_capital += (lambda * (x - self.theta)).ln_1p();
         if self.alarm_at.is_none() && self.log_capital >= ln_inv_alpha {
             self.alarm_at = Some(t);
         }
+        // Until the average has its memory, weigh every loss alike (a plain mean).
+        self.seen += 1;
+        let w = (1.0 / self.seen as f64).max(RECENT_WEIGHT);
+        self.recent_mean += w * (x - self.recent_mean);
+        self.recent_sq += w * (x * x - self.recent_sq);
     }
 
     /// ln K_t, the log e-value (1/K_t is an anytime-valid p-value).
