@@ -156,7 +156,7 @@ fn writing_again(d: &Daemon, files: f64, total: f64) {
 #[test]
 fn a_full_volume_makes_the_daemon_not_ready_until_space_is_back() {
     let dir = TempDir::new("enospc");
-    let mount = Mount::tmpfs(&dir.path("state"), "3m");
+    let mount = Mount::tmpfs(&dir.path("state"), "8m");
     let port = common::free_port();
     let d = Daemon::start(&config(&dir, port), port);
     dir.drop_file("pred-0001.csv", &batch(0, 100));

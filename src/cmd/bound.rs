@@ -117,6 +117,7 @@ pub fn for_each_loss_with<R: Read>(
         LossSource::Column(c) => c.clone(),
         LossSource::Compare { label, .. } => label.clone(),
     };
+    // Only a label column can be blank here (see `each_row`).
     let file = input.file_label.clone();
     each_row(input, extra, src, |row, cells| match row.loss {
         Some(_) => visit(row, cells),
@@ -126,7 +127,7 @@ pub fn for_each_loss_with<R: Read>(
     })
 }
 
-/// True when a label (or loss) cell says "no label yet": absent, null or blank.
+/// True when a label cell says "no label yet": absent, null or blank.
 fn unlabelled(cell: Option<&[u8]>) -> bool {
     cell.is_none_or(|c| c.iter().all(u8::is_ascii_whitespace))
 }
@@ -152,12 +153,12 @@ fn each_row<R: Read>(
         let row = row?;
         last_line = row.line;
         let located = |i: usize, e: loss::CellError| DecodeError::cell(file, row.line, columns[i], e);
-        let label_at = usize::from(matches!(input.source, LossSource::Compare { .. }));
+        // A blank label cell is a prediction whose label has not come; a blank precomputed loss
+        // stays an error (it is more likely a bug upstream than a pending label).
+        let compare = matches!(input.source, LossSource::Compare { .. });
         let (value, clipped) = match (&input.source, input.loss) {
-            _ if unlabelled(row.cell(label_at)) => {
-                if label_at == 1 {
-                    required(&row, file, &columns, 0)?;
-                }
+            _ if compare && unlabelled(row.cell(1)) => {
+                required(&row, file, &columns, 0)?;
                 (None, false)
             }
             (LossSource::Column(_), LossSpec::Column { max }) => {
