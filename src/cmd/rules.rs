@@ -10,7 +10,7 @@
 
 use std::fmt::Write;
 
-use crate::config::{Config, ModelConfig, WindowKind};
+use crate::config::{Config, DecideOn, ModelConfig, WindowKind};
 
 /// The Prometheus job label riskbound's scrape uses, unless told otherwise.
 pub const DEFAULT_JOB: &str = "riskbound";
@@ -71,11 +71,22 @@ fn prom_duration(secs: u64) -> String {
     format!("{secs}s")
 }
 
-fn window_words(kind: WindowKind) -> String {
-    match kind {
-        WindowKind::Last(n) => format!("the newest {n} labelled samples"),
-        WindowKind::SpanMs(ms) => {
-            format!("the labelled samples predicted within {} of the newest", prom_duration((ms / 1000).max(1) as u64))
+fn window_words(w: &crate::config::WindowConfig, decide_on: DecideOn) -> String {
+    let d = |ms: i64| prom_duration((ms / 1000).max(1) as u64);
+    match (w.kind, w.mature, decide_on) {
+        (WindowKind::Last(n), false, DecideOn::LabelledOnly) => format!("the newest {n} labelled samples"),
+        (WindowKind::SpanMs(ms), false, DecideOn::LabelledOnly) => {
+            format!("the labelled samples predicted within {} of the newest", d(ms))
+        }
+        (WindowKind::Last(n), false, DecideOn::DelayRobust) => {
+            format!("the newest {n} predictions, a missing label counted at its worst")
+        }
+        (WindowKind::SpanMs(ms), false, DecideOn::DelayRobust) => {
+            format!("the predictions made within {} of the newest, a missing label counted at its worst", d(ms))
+        }
+        (WindowKind::Last(n), true, _) => format!("the newest {n} predictions whose label_wait is over"),
+        (WindowKind::SpanMs(ms), true, _) => {
+            format!("the predictions of {} ending label_wait before the newest", d(ms))
         }
     }
 }
@@ -143,11 +154,14 @@ fn sla_rules(out: &mut String, m: &ModelConfig) {
         );
     }
     let method = sla.method.name();
-    let guarantee = m.window_guarantee.as_str();
+    let guarantee = match sla.decide_on {
+        DecideOn::DelayRobust => crate::export::registry::delay_robust_guarantee(m.window_guarantee),
+        DecideOn::LabelledOnly => m.window_guarantee.as_str(),
+    };
     let level = m.confidence.level();
     for w in &m.windows {
         let wname = &w.name;
-        let words = window_words(w.kind);
+        let words = window_words(w, sla.decide_on);
         let sel = format!("model=\"{name}\",window=\"{wname}\",method=\"{method}\",guarantee=\"{guarantee}\"");
         write_rule(out, &Rule {
             alert: "RiskboundWindowSlaViolated",
@@ -204,6 +218,15 @@ fn sla_rules(out: &mut String, m: &ModelConfig) {
         severity: "ticket",
         summary: format!("{name}: fewer than {} of predictions get a label", sla.min_label_coverage),
         description: "Missing labels may be missing because of their outcome: windows are inconclusive and the paging alarms are held back until coverage recovers.".into(),
+    });
+    write_rule(out, &Rule {
+        alert: "RiskboundLabelDelayDependsOnOutcome",
+        labels: vec![("model", name.clone())],
+        expr: format!("riskbound_label_delay_outcome_dependent{{model=\"{name}\"}} == 1"),
+        for_: Some("1h"),
+        severity: "ticket",
+        summary: format!("{name}: label delays depend on the outcome"),
+        description: "Labels of bad outcomes come back at a different speed from good ones (two-sample Kolmogorov-Smirnov test on the labelled samples' delays). Bounds on the labelled samples alone (guarantee per-window or spent) are then biased, usually towards looking healthy; the delay-robust bounds and the anytime alarms do not depend on it. A per-look test, held for an hour: a ticket.".into(),
     });
 }
 
