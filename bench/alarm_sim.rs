@@ -7,15 +7,23 @@
 //! shared/METHODS.md §2.8); false alarms before the step, median delay after it, and the
 //! fraction of streams not alarmed within 5,000 labels of it.
 //!
+//! Part C: the harmful-shift test (`exceeded` at θ = reference upper bound + tolerance) after a
+//! healthy period, with the bet the daemon uses (plug-in Kelly on an exponentially weighted
+//! recent mean and variance) beside the bet borrowed from the confidence sequence that it
+//! replaced, and the same at the boundary null.
+//! Part D: what feeding predictions in prediction-time order once label_wait is over costs in
+//! detection time against feeding labels as they arrive, when a mistake's label comes back 30 h
+//! after the prediction and a correct one's after 2 h (label_wait 32 h).
+//!
 //! Run: cargo run --release --example alarm_sim [-- --streams R]
 
 use std::collections::VecDeque;
 
 use rand::rngs::Xoshiro256PlusPlus;
 use rand::{RngExt, SeedableRng};
-use riskbound::estimate::anytime::evidence::ChangeDetector;
+use riskbound::estimate::anytime::evidence::{ChangeDetector, SlaTest};
 use riskbound::estimate::anytime::sequence::HoeffdingBoundary;
-use riskbound::estimate::anytime::{Sequence, Tracker, TrackerSpec};
+use riskbound::estimate::anytime::{PlugIn, Sequence, Tracker, TrackerSpec, TRUNCATION};
 use riskbound::estimate::binomial::clopper_pearson;
 
 const DELTA: f64 = 0.05;
@@ -93,6 +101,178 @@ impl Rules {
         out[6] = self.change_short.alarm_at().is_some();
         out[7] = self.tracker.change().unwrap().alarm_at().is_some();
         out
+    }
+}
+
+/// The bet the SLA tests used before: the confidence sequence's plug-in bet, positive whatever
+/// the sign of the recent mean minus θ (kept here only to compare).
+struct BorrowedBet {
+    theta: f64,
+    plug: PlugIn,
+    log_capital: f64,
+    fired: bool,
+}
+
+impl BorrowedBet {
+    fn new(theta: f64) -> Self {
+        BorrowedBet { theta, plug: PlugIn::default(), log_capital: 0.0, fired: false }
+    }
+    fn push(&mut self, x: f64) -> bool {
+        let lambda = self.plug.bet((1.0 / DELTA).ln()).min(TRUNCATION / self.theta);
+        self.log_capital += (lambda * (x - self.theta)).ln_1p();
+        self.plug.push(x);
+        self.fired |= self.log_capital >= (1.0 / DELTA).ln();
+        self.fired
+    }
+}
+
+fn median(mut d: Vec<usize>) -> String {
+    d.sort_unstable();
+    if d.is_empty() {
+        "—".to_string()
+    } else {
+        d[d.len() / 2].to_string()
+    }
+}
+
+fn part_c(streams: usize, rng: &mut Xoshiro256PlusPlus) {
+    // A 2000-row reference at 5% error, tolerance 0.02, reference confidence 0.99.
+    let runs = streams / 2;
+    let (healthy, harmful, n_ref) = (1500usize, 1500usize, 2000u64);
+    let (mut caught, mut early, mut delays) = ([0usize; 2], [0usize; 2], [Vec::new(), Vec::new()]);
+    let mut null_alarms = [0usize; 2];
+    let mut thetas = 0.0;
+    for _ in 0..runs {
+        let k = (0..n_ref).filter(|_| rng.random::<f64>() < 0.05).count() as u64;
+        let theta = clopper_pearson(k, n_ref, 0.01).upper + 0.02;
+        thetas += theta;
+        let (mut new, mut old) = (SlaTest::new(theta), BorrowedBet::new(theta));
+        let mut first = [None; 2];
+        for t in 1..=healthy + harmful {
+            let x = f64::from(u8::from(rng.random::<f64>() < if t <= healthy { 0.05 } else { 0.22 }));
+            new.push(t as u64, x, (1.0 / DELTA).ln());
+            let fired = [new.alarm_at().is_some(), old.push(x)];
+            for i in 0..2 {
+                if fired[i] && first[i].is_none() {
+                    first[i] = Some(t);
+                }
+            }
+        }
+        for i in 0..2 {
+            match first[i] {
+                Some(t) if t <= healthy => early[i] += 1,
+                Some(t) => {
+                    caught[i] += 1;
+                    delays[i].push(t - healthy)
+                }
+                None => {}
+            }
+        }
+        // The boundary null: the risk at θ for 5000 labels.
+        let (mut new, mut old) = (SlaTest::new(theta), BorrowedBet::new(theta));
+        let mut fired = [false; 2];
+        for t in 1..=5000u64 {
+            let x = f64::from(u8::from(rng.random::<f64>() < theta));
+            new.push(t, x, (1.0 / DELTA).ln());
+            fired[0] |= new.alarm_at().is_some();
+            fired[1] |= old.push(x);
+        }
+        for i in 0..2 {
+            null_alarms[i] += usize::from(fired[i]);
+        }
+    }
+    println!(
+        "\nPart C: {runs} streams; a 2000-row reference at 5% error, tolerance 0.02, reference confidence 0.99 \
+         (mean θ_shift {:.4}); 1500 labels at 0.05, then 1500 at 0.22; δ = {DELTA}\n",
+        thetas / runs as f64
+    );
+    println!("| bet of the shift test | false alarm before the rise | caught within 1500 | median delay (labels) | P(false alarm within 5000) at risk = θ |");
+    println!("|---|---|---|---|---|");
+    for (i, name) in
+        ["plug-in Kelly, recent mean and variance (the daemon's)", "borrowed from the confidence sequence (before)"]
+            .iter()
+            .enumerate()
+    {
+        println!(
+            "| {name} | {:.3} | {:.3} | {} | {:.3} |",
+            early[i] as f64 / runs as f64,
+            caught[i] as f64 / runs as f64,
+            median(delays[i].clone()),
+            null_alarms[i] as f64 / runs as f64
+        );
+    }
+}
+
+fn part_d(streams: usize, rng: &mut Xoshiro256PlusPlus) {
+    // 100 predictions an hour; the risk steps from 0.10 to 0.20 at hour 48; θ = 0.15.
+    let runs = streams / 4;
+    let (per_hour, step_h, hours, theta, wait_h) = (100usize, 48.0, 144usize, 0.15, 32.0);
+    let mut results: [Vec<usize>; 2] = [Vec::new(), Vec::new()];
+    let (mut early, mut never) = ([0usize; 2], [0usize; 2]);
+    for _ in 0..runs {
+        // (prediction time h, label time h, loss)
+        let mut items: Vec<(f64, f64, f64)> = Vec::with_capacity(per_hour * hours);
+        for i in 0..per_hour * hours {
+            let t = i as f64 / per_hour as f64;
+            let wrong = rng.random::<f64>() < if t < step_h { 0.10 } else { 0.20 };
+            items.push((t, t + if wrong { 30.0 } else { 2.0 }, f64::from(u8::from(wrong))));
+        }
+        let end = hours as f64;
+        // Mature: in prediction-time order, each at t + label_wait.
+        let mut mature = SlaTest::new(theta);
+        let mut at_mature = None;
+        for (k, &(t, _, x)) in items.iter().enumerate() {
+            if t + wait_h > end {
+                break;
+            }
+            mature.push(k as u64 + 1, x, (1.0 / DELTA).ln());
+            if mature.alarm_at().is_some() {
+                at_mature = Some(t + wait_h);
+                break;
+            }
+        }
+        // Join order: as the labels arrive.
+        let mut joined = items.clone();
+        joined.sort_by(|a, b| a.1.total_cmp(&b.1));
+        let mut join = SlaTest::new(theta);
+        let mut at_join = None;
+        for (k, &(_, tl, x)) in joined.iter().enumerate() {
+            if tl > end {
+                break;
+            }
+            join.push(k as u64 + 1, x, (1.0 / DELTA).ln());
+            if join.alarm_at().is_some() {
+                at_join = Some(tl);
+                break;
+            }
+        }
+        for (i, at) in [at_mature, at_join].into_iter().enumerate() {
+            match at {
+                Some(t) if t < step_h => early[i] += 1,
+                Some(t) => results[i].push((t - step_h).round() as usize),
+                None => never[i] += 1,
+            }
+        }
+    }
+    println!(
+        "\nPart D: {runs} streams, 100 predictions an hour, risk 0.10 then 0.20 from hour 48, θ = 0.15; a mistake's \
+         label comes 30 h after the prediction, a correct one's after 2 h; label_wait 32 h; {hours} h observed\n"
+    );
+    println!("| feed of the exceeded test | false alarm before the step | median hours from the step to the alarm | not alarmed |");
+    println!("|---|---|---|---|");
+    for (i, name) in [
+        "predictions in prediction-time order once label_wait is over (the daemon's)",
+        "labels as they arrive (join order, before)",
+    ]
+    .iter()
+    .enumerate()
+    {
+        println!(
+            "| {name} | {:.3} | {} | {:.3} |",
+            early[i] as f64 / runs as f64,
+            median(results[i].clone()),
+            never[i] as f64 / runs as f64
+        );
     }
 }
 
@@ -183,5 +363,7 @@ fn main() {
             never[i] as f64 / runs as f64
         );
     }
+    part_c(streams, &mut rng);
+    part_d(streams, &mut rng);
     eprintln!("({:.1} s)", started.elapsed().as_secs_f64());
 }
