@@ -132,8 +132,8 @@ fn delay_robust_bounds_cover_under_every_delay_mechanism() {
             miss[2]
         );
         for (i, name) in ["clopper-pearson", "betting"].iter().enumerate() {
-            for side in 0..2 {
-                assert!(rate(miss[i][side]) <= limit, "{mech:?} {name} side {side}: {} > {limit}", rate(miss[i][side]));
+            for (side, &m) in miss[i].iter().enumerate() {
+                assert!(rate(m) <= limit, "{mech:?} {name} side {side}: {} > {limit}", rate(m));
             }
         }
         if let Mechanism::OutcomeDependent | Mechanism::FeatureDependent = mech {

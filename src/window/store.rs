@@ -117,6 +117,10 @@ pub type WindowRow = (f64, Option<Vec<String>>);
 /// outcomes.
 pub type DelayRow = (f64, i64);
 
+/// A window as the estimators read it: its labelled rows and, once there are predictions, its
+/// cohort (see [`Store::window_view`]).
+pub type WindowView = (Vec<WindowRow>, Option<(CohortRange, Cohort)>);
+
 /// The whole seconds of prediction time a window's cohort covers, inclusive.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct CohortRange {
@@ -1078,12 +1082,7 @@ impl Store {
     /// for a mature window, the labelled samples of its cohort) and its cohort, every prediction
     /// of the window's prediction-time range with its loss or none (`None` before the first
     /// prediction, or when the range lies wholly before the counts begin).
-    pub fn window_view(
-        &self,
-        model: &str,
-        w: &WindowConfig,
-        label_wait_ms: i64,
-    ) -> Result<(Vec<WindowRow>, Option<(CohortRange, Cohort)>), StoreError> {
+    pub fn window_view(&self, model: &str, w: &WindowConfig, label_wait_ms: i64) -> Result<WindowView, StoreError> {
         let cohort = self.cohort(model, w, label_wait_ms)?;
         let rows = if w.mature {
             let mem = self.memory(model)?;
