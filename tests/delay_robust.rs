@@ -86,10 +86,8 @@ fn outcome_dependent_delays_never_certify_ok() {
     assert_eq!(m.get("riskbound_label_delay_outcome_dependent", &[("model", "m")]), Some(1.0));
     let p = m.get("riskbound_label_delay_outcome_p_value", &[("model", "m")]).unwrap();
     assert!(p < 1e-6, "p = {p}");
-    let q = |o: &str| {
-        m.get("riskbound_label_delay_by_outcome_seconds", &[("model", "m"), ("outcome", o), ("quantile", "0.5")])
-            .unwrap()
-    };
+    let q =
+        |o: &str| m.get("riskbound_label_delay_median_by_outcome_seconds", &[("model", "m"), ("outcome", o)]).unwrap();
     assert_eq!((q("error"), q("correct")), (30.0 * 3600.0, 2.0 * 3600.0));
     // The anytime alarm, fed in prediction-time order once label_wait is over, sees the truth.
     let n = m.get("riskbound_window_cohort_predictions", &[("model", "m"), ("window", "since-reset")]).unwrap();

@@ -7,8 +7,9 @@ bin=${1:-target/release/riskbound}
 work=$(mktemp -d)
 trap 'kill "${pid:-0}" 2>/dev/null || true; wait "${pid:-0}" 2>/dev/null || true; rm -rf "$work"' EXIT
 port=$(python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1", 0)); print(s.getsockname()[1])')
-# Three simulated days of the demo scenario leave batches, a config and committed state.
-"$bin" demo --dir "$work" --days 3 --ms-per-hour 0 --listen "127.0.0.1:$port" --exit-when-done > "$work/demo.out" 2> "$work/demo.err"
+# Seven simulated days of the demo scenario (label_wait is 5 days, so the anytime sequences have
+# matured predictions) leave batches, a config and committed state.
+"$bin" demo --dir "$work" --days 7 --ms-per-hour 0 --listen "127.0.0.1:$port" --exit-when-done > "$work/demo.out" 2> "$work/demo.err"
 "$bin" run --config "$work/riskbound.yaml" 2> "$work/run.err" &
 pid=$!
 for _ in $(seq 200); do
@@ -30,9 +31,13 @@ need = {"riskbound_risk_upper_bound", "riskbound_risk_lower_bound", "riskbound_r
         "riskbound_predictions_awaiting_label", "riskbound_label_delay_seconds",
         "riskbound_last_ingest_timestamp_seconds", "riskbound_build_info",
         "riskbound_alarm_log_evidence", "riskbound_alarm_log_threshold", "riskbound_alarm_firing",
-        "riskbound_alarm_max_risk", "riskbound_anytime_reset_timestamp_seconds", "riskbound_anytime_resets"}
+        "riskbound_alarm_max_risk", "riskbound_anytime_reset_timestamp_seconds", "riskbound_anytime_resets",
+        "riskbound_window_cohort_predictions", "riskbound_window_cohort_unlabelled",
+        "riskbound_label_delay_median_by_outcome_seconds", "riskbound_label_delay_p90_by_outcome_seconds",
+        "riskbound_label_delay_outcome_samples", "riskbound_label_delay_outcome_p_value",
+        "riskbound_label_delay_outcome_dependent"}
 guarantees = {s.labels.get("guarantee") for f in fams if f.name == "riskbound_risk_upper_bound" for s in f.samples}
-assert guarantees == {"per-window", "anytime"}, guarantees
+assert guarantees == {"per-window", "delay-robust", "anytime"}, guarantees
 missing = need - names
 assert not missing, f"missing families: {missing}"
 print(f"prometheus_client parsed {len(fams)} families, {sum(len(f.samples) for f in fams)} samples")

@@ -67,7 +67,8 @@ pub mod names {
     pub const REGISTERED_UPPER: &str = "riskbound_registered_slice_risk_upper_bound";
     pub const COHORT: &str = "riskbound_window_cohort_predictions";
     pub const COHORT_UNLABELLED: &str = "riskbound_window_cohort_unlabelled";
-    pub const DELAY_BY_OUTCOME: &str = "riskbound_label_delay_by_outcome_seconds";
+    pub const DELAY_MEDIAN_BY_OUTCOME: &str = "riskbound_label_delay_median_by_outcome_seconds";
+    pub const DELAY_P90_BY_OUTCOME: &str = "riskbound_label_delay_p90_by_outcome_seconds";
     pub const DELAY_OUTCOME_SAMPLES: &str = "riskbound_label_delay_outcome_samples";
     pub const DELAY_OUTCOME_P: &str = "riskbound_label_delay_outcome_p_value";
     pub const DELAY_OUTCOME_DEPENDENT: &str = "riskbound_label_delay_outcome_dependent";
@@ -217,18 +218,17 @@ impl Collector for SnapshotCollector {
                     .chain(std::iter::once((mw(&m.name, SINCE_RESET), (m.anytime.n - m.anytime.labelled) as f64)))
             }),
         )?;
-        let mut dd: [Vec<(Labels, f64)>; 4] = Default::default();
+        let mut dd: [Vec<(Labels, f64)>; 5] = Default::default();
         for m in &snap.models {
             let d = &m.delay_dependence;
             for g in &d.groups {
                 let mo = vec![("model", m.name.clone()), ("outcome", g.outcome.to_string())];
                 dd[1].push((mo.clone(), g.n as f64));
-                for (q, v) in [("0.5", g.median_s), ("0.9", g.p90_s)] {
-                    if let Some(v) = v {
-                        let mut l = mo.clone();
-                        l.push(("quantile", q.to_string()));
-                        dd[0].push((l, v));
-                    }
+                if let Some(v) = g.median_s {
+                    dd[0].push((mo.clone(), v));
+                }
+                if let Some(v) = g.p90_s {
+                    dd[4].push((mo.clone(), v));
                 }
             }
             if let Some(p) = d.p_value {
@@ -236,8 +236,14 @@ impl Collector for SnapshotCollector {
             }
             dd[3].push((vec![("model", m.name.clone())], f64::from(u8::from(d.dependent))));
         }
-        let [dq, dn, dp, ddep] = dd;
-        gauges(e, names::DELAY_BY_OUTCOME, "Label delay quantiles of the newest labelled samples by outcome (0-1 loss: error, correct; other losses: above_median, at_or_below_median)", dq)?;
+        let [dq, dn, dp, ddep, d90] = dd;
+        gauges(e, names::DELAY_MEDIAN_BY_OUTCOME, "Median label delay of the newest labelled samples by outcome (0-1 loss: error, correct; other losses: above_median, at_or_below_median)", dq)?;
+        gauges(
+            e,
+            names::DELAY_P90_BY_OUTCOME,
+            "90th percentile of the label delay of the newest labelled samples by outcome",
+            d90,
+        )?;
         gauges(e, names::DELAY_OUTCOME_SAMPLES, "Labelled samples behind each outcome's delay quantiles", dn)?;
         gauges(e, names::DELAY_OUTCOME_P, "p-value of the two-sample Kolmogorov-Smirnov test that label delays do not depend on the outcome (a per-look test; absent while an outcome has no labelled sample)", dp)?;
         gauges(e, names::DELAY_OUTCOME_DEPENDENT, "1 when the delay test rejects at level 1 - confidence: label delays depend on outcomes, so the labelled-only bounds (guarantee per-window or spent) may be far too optimistic; the delay-robust bounds and anytime alarms still hold", ddep)?;
