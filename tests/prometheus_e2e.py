@@ -150,7 +150,7 @@ models:
   - name: courier
     predictions: {{ dir: in, pattern: "pred-*.csv", columns: {{ id: id, time: t, prediction: p }} }}
     labels: {{ dir: in, pattern: "label-*.csv", columns: {{ id: id, time: t, label: y }} }}
-    label_wait: 1d
+    label_wait: 300s
     windows: [{{ name: recent, last: 400 }}]
     sla: {{ max_risk: 0.1, change_horizon: 1000 }}
 """)
@@ -240,13 +240,17 @@ scrape_configs:
         # 400 requests, 1 in 3 wrong: the CP lower bound on window recent is far above 0.1.
         folder = os.path.join(work, "in")
         t0 = 1_790_000_000
+        # label_wait is 300 s: after the last batch the first 160 predictions have had their wait
+        # (expiry runs on event time), and the anytime alarms take them. A batch at a time, so no
+        # prediction's wait ends before its own label file is taken.
         for b in range(4):
             pred = "id,t,p\n" + "".join(f"b{b}r{i},{t0 + 100 * b + i},1\n" for i in range(100))
             label = "id,t,y\n" + "".join(f"b{b}r{i},{t0 + 100 * b + i + 60},{0 if i % 3 == 0 else 1}\n" for i in range(100))
             drop(folder, f"pred-{b}.csv", pred)
             drop(folder, f"label-{b}.csv", label)
+            time.sleep(1)
 
-        sel = 'riskbound_risk_lower_bound{model="courier",window="recent",method="clopper-pearson"}'
+        sel = 'riskbound_risk_lower_bound{model="courier",window="recent",method="clopper-pearson",guarantee="delay-robust"}'
         def stored():
             r = api(prom_port, "/api/v1/query", query=sel)["data"]["result"]
             return r and float(r[0]["value"][1]) > 0.1 and r
