@@ -3,8 +3,8 @@
 //!
 //! Part A: streams at the boundary of the null (Bernoulli(θ) losses, θ = 0.10), a look every 50
 //! labels; the fraction of streams with any alarm within 2,000 and within 20,000 labels.
-//! Part B: a step 0.10 → 0.20 after 3,000 labels with θ = 0.15 (the scenario of
-//! shared/METHODS.md §2.8); false alarms before the step, median delay after it, and the
+//! Part B: a step 0.10 → 0.20 after 3,000 labels with θ = 0.15 (a step of the size
+//! a per-window rule is usually tuned for); false alarms before the step, median delay after it, and the
 //! fraction of streams not alarmed within 5,000 labels of it.
 //!
 //! Part C: the harmful-shift test (`exceeded` at θ = reference upper bound + tolerance) after a

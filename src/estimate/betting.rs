@@ -1,5 +1,5 @@
 //! The fixed-n betting (hedged-capital) bound of Waudby-Smith & Ramdas, "Estimating means of
-//! bounded random variables by betting" (JRSS-B, 2023), as shared/METHODS.md §1.6 specifies it.
+//! bounded random variables by betting" (JRSS-B, 2023), §3–4.
 //!
 //! For a candidate mean m, a gambler who bets λ_t on "the mean is below m" turns capital 1 into
 //! K⁻_t(m) = Π_{i≤t} (1 + λ_i (m − x_i)). If m is the true mean this is a nonnegative martingale,

@@ -2,7 +2,7 @@
 //! no clocks. Input: a [`LossSummary`] of the losses of one window or group (plus the losses
 //! themselves for methods that need their order). Output: one-sided lower and upper bounds, each
 //! valid on its own with probability at least the stated confidence when the losses are i.i.d.
-//! in [0, B] and were not used to choose the model being judged (shared/METHODS.md §1.1).
+//! in [0, B] and were not used to choose the model being judged.
 //!
 //! Every method works on losses scaled to [0, 1] and scales back by B, so one implementation
 //! serves every loss range. To add a method: one file here with a pure function, one variant in

@@ -1,5 +1,5 @@
 //! Slices of a window: the scan for the worst ones and the certificates that survive the
-//! selection (shared/METHODS.md §3–5). Pure: rows in, numbers out; signs and splits come from
+//! selection (Bartlett & Mendelson 2002; Bartlett, Bousquet & Mendelson 2005). Pure: rows in, numbers out; signs and splits come from
 //! a recorded seed, so every result can be reproduced.
 //!
 //! The class. For categorical features every value, and conjunctions of up to `depth` of them;

@@ -3,7 +3,7 @@
 //!
 //! Why not a crate: the inverses in statrs, special and puruspe hang, panic or lose accuracy on
 //! exactly the inputs a Clopper-Pearson bound produces (k = 0 upper bounds with n ≥ 10^6, tail
-//! targets of 1e-6), measured in shared/DEPS.md §8. The forward `statrs::beta_reg` also returns
+//! targets of 1e-6), measured when the crates were chosen. The forward `statrs::beta_reg` also returns
 //! the far tail as `1 − (near tail)`, which costs relative precision when the wanted tail is the
 //! small one. So this file computes whichever tail the continued fraction gives accurately and
 //! inverts on the tail the caller asked for, with a bracketed, iteration-capped solver (it can

@@ -1,7 +1,7 @@
 //! Anytime-valid bounds and alarms: confidence sequences for the risk since a reset point, and
 //! the sequential tests that page. Pure state machines: one loss in, O(1) or O(grid) work, no
 //! I/O. Every object here is a nonnegative (super)martingale argument plus Ville's inequality
-//! (shared/METHODS.md §2.3), so its guarantee holds at every label simultaneously: a daemon that
+//! (Ville 1939; Howard et al. 2021, §2), so its guarantee holds at every label simultaneously: a daemon that
 //! looks after every batch, forever, keeps the stated false-alarm probability.
 //!
 //! The guarantees assume the losses are fed in an order that does not depend on their values

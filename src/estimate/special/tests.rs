@@ -48,7 +48,7 @@ fn quantile_inverts_the_tails() {
 
 #[test]
 fn inputs_that_hang_other_solvers_return() {
-    // The triples on which the crates' inverses hung (shared/DEPS.md §8); any finite answer
+    // The triples on which the crates' inverses hung (found when the crates were chosen); any finite answer
     // in [0, 1] that inverts the tail is a pass.
     for (a, b, p) in [(1.0, 1e7, 1e-9), (3.0, 7.5e6, 0.999), (0.01, 1e5, 0.5)] {
         let x = beta_quantile(Tail::Lower, p, a, b);
