@@ -228,6 +228,13 @@ struct Kept {
     delay_ms: i64,
 }
 
+/// Kept samples as window rows in arrival order, as betting needs: seq is the order samples
+/// were stored in.
+fn arrival_rows(mut picked: Vec<(&(i64, i64), &Kept)>) -> Vec<WindowRow> {
+    picked.sort_unstable_by_key(|(k, _)| k.1);
+    picked.into_iter().map(|(_, v)| (v.loss, v.features.clone())).collect()
+}
+
 /// Slice features as stored (a JSON array of strings); `None` when absent or unreadable.
 fn parse_features(json: Option<&str>) -> Option<Vec<String>> {
     json.and_then(|f| serde_json::from_str::<Vec<String>>(f).ok())
@@ -1066,16 +1073,14 @@ impl Store {
         let mem = self.memory(model)?;
         let kept = &mem.kept;
         // The newest `n` by (t_pred, seq), or every sample within the span of the newest t_pred.
-        let mut picked: Vec<(&(i64, i64), &Kept)> = match kind {
+        let picked: Vec<(&(i64, i64), &Kept)> = match kind {
             WindowKind::Last(n) => kept.iter().rev().take(n.min(usize::MAX as u64) as usize).collect(),
             WindowKind::SpanMs(ms) => match kept.last_key_value() {
                 Some((&(newest, _), _)) => kept.range((newest.saturating_sub(ms), i64::MIN)..).collect(),
                 None => Vec::new(),
             },
         };
-        // Arrival order, as betting needs: seq is the order samples were stored in.
-        picked.sort_unstable_by_key(|(k, _)| k.1);
-        Ok(picked.into_iter().map(|(_, v)| (v.loss, v.features.clone())).collect())
+        Ok(arrival_rows(picked))
     }
 
     /// One window as the estimators read it: its labelled samples (as [`Store::window_rows`];
@@ -1088,15 +1093,14 @@ impl Store {
             let mem = self.memory(model)?;
             match &cohort {
                 Some((r, _)) => {
-                    let mut picked: Vec<(&(i64, i64), &Kept)> = mem
+                    let picked: Vec<(&(i64, i64), &Kept)> = mem
                         .kept
                         .range(
                             (r.from_sec.saturating_mul(1000), i64::MIN)
                                 ..(r.to_sec.saturating_add(1).saturating_mul(1000), i64::MIN),
                         )
                         .collect();
-                    picked.sort_unstable_by_key(|(k, _)| k.1);
-                    picked.into_iter().map(|(_, v)| (v.loss, v.features.clone())).collect()
+                    arrival_rows(picked)
                 }
                 None => Vec::new(),
             }
