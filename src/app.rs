@@ -397,9 +397,14 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     let addr = listener.local_addr()?;
 
     let snapshot: SharedSnapshot = Arc::new(RwLock::new(Arc::new(Snapshot::default())));
-    let health = Arc::new(Health::default());
+    let listener_stats = Arc::new(server::ListenerStats::default());
+    let health = Arc::new(Health {
+        listener: listener_stats.clone(),
+        memory_limit_bytes: config.memory_limit_bytes.or_else(crate::export::process::cgroup_memory_limit),
+        ..Health::default()
+    });
     let shared = Arc::new(Shared {
-        registry: registry::registry(snapshot.clone(), health.clone()),
+        registry: registry::registry(snapshot.clone(), health.clone(), config.http.max_connections),
         ready: AtomicBool::new(false),
     });
     let server_stop = Arc::new(tokio::sync::Notify::new());
@@ -410,13 +415,10 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     }
     let tls = config.web.tls.clone();
     let scheme = if tls.is_some() { "https" } else { "http" };
-    let limits = server::Limits {
-        max_connections: config.max_connections,
-        header_read_timeout: config.header_read_timeout,
-        connection_lifetime: Duration::from_secs(60),
-    };
+    let limits = config.http;
+    let listener_stats = listener_stats.clone();
     let server = runtime.spawn(async move {
-        server::serve(listener, app, limits, stop_signal, tls).await;
+        server::serve(listener, app, limits, stop_signal, tls, listener_stats).await;
         Ok(())
     });
     tracing::info!(%addr, scheme, basic_auth = !config.web.users.is_empty(), "serving /metrics, /healthz, /readyz");

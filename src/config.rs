@@ -42,6 +42,11 @@ struct RawConfig {
     future_tolerance: Option<Spanned<String>>,
     max_connections: Option<Spanned<i64>>,
     header_read_timeout: Option<Spanned<String>>,
+    keep_alive_idle: Option<Spanned<String>>,
+    max_requests_per_connection: Option<Spanned<i64>>,
+    connection_lifetime: Option<Spanned<String>>,
+    max_header_bytes: Option<Spanned<i64>>,
+    memory_limit: Option<Spanned<String>>,
     models: Spanned<Vec<RawModel>>,
 }
 
@@ -144,13 +149,70 @@ pub struct Config {
     pub rescan_interval: Duration,
     /// Longest accepted row; longer rows are rejected (bounds memory on hostile input).
     pub max_row_bytes: u64,
-    /// Open HTTP connections at most.
-    pub max_connections: usize,
-    /// Time allowed for an HTTP request's headers to arrive.
-    pub header_read_timeout: Duration,
+    /// What one HTTP client may hold.
+    pub http: HttpLimits,
+    /// The container's memory limit, for the memory ticket rule: `memory_limit` if set, else
+    /// read from the cgroup at start-up (None when unlimited or unknown).
+    pub memory_limit_bytes: Option<u64>,
     pub models: Vec<ModelConfig>,
     /// TLS and basic auth of the HTTP surface (from `--web-config`; plain HTTP by default).
     pub web: crate::export::web::WebConfig,
+}
+
+/// Limits on the HTTP surface; each bounds what one client can hold.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct HttpLimits {
+    /// Open connections at most.
+    pub max_connections: usize,
+    /// Time allowed for the TLS handshake and the first request's headers (from accept), and
+    /// for a later request's headers (from its first byte).
+    pub header_read_timeout: Duration,
+    /// How long a kept-alive connection may wait for its next request (or take to read a
+    /// response).
+    pub keep_alive_idle: Duration,
+    /// Requests served on one connection; the last is answered with `Connection: close`.
+    pub max_requests_per_connection: u32,
+    /// Longest life of one connection, whatever it does.
+    pub connection_lifetime: Duration,
+    /// Largest request head (request line and headers); larger ones get 431.
+    pub max_header_bytes: usize,
+}
+
+impl Default for HttpLimits {
+    fn default() -> Self {
+        HttpLimits {
+            max_connections: 64,
+            header_read_timeout: Duration::from_secs(10),
+            keep_alive_idle: Duration::from_secs(90),
+            max_requests_per_connection: 1000,
+            connection_lifetime: Duration::from_secs(600),
+            max_header_bytes: 16 * 1024,
+        }
+    }
+}
+
+/// Parses a byte size: a plain number, or one with a unit (`KiB`/`Ki`, `MiB`/`Mi`, `GiB`/`Gi`,
+/// and the decimal `kB`, `MB`, `GB`), as Kubernetes resource quantities are written.
+pub fn parse_bytes(s: &str) -> Result<u64, String> {
+    let t = s.trim();
+    let split = t.find(|c: char| !c.is_ascii_digit()).unwrap_or(t.len());
+    let (num, unit) = t.split_at(split);
+    let v: u64 = num.parse().map_err(|_| format!("{s:?} is not a size such as 512MiB"))?;
+    let mult: u64 = match unit.trim() {
+        "" | "B" => 1,
+        "KiB" | "Ki" => 1 << 10,
+        "MiB" | "Mi" => 1 << 20,
+        "GiB" | "Gi" => 1 << 30,
+        "kB" | "k" => 1_000,
+        "MB" | "M" => 1_000_000,
+        "GB" | "G" => 1_000_000_000,
+        u => return Err(format!("{s:?}: unknown unit {u:?} (KiB, MiB, GiB, kB, MB, GB)")),
+    };
+    match v.checked_mul(mult) {
+        Some(0) => Err(format!("{s:?} must be positive")),
+        Some(b) => Ok(b),
+        None => Err(format!("{s:?} is too large")),
+    }
 }
 
 /// One monitored model.
@@ -1009,21 +1071,9 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
             1 << 20
         }
     };
-    let max_connections = match &raw.max_connections {
-        None => 64,
-        Some(m) if (1..=65_536).contains(&m.value) => m.value as usize,
-        Some(m) => {
-            c.push(m, "max_connections", format!("must lie in [1, 65536], got {}", m.value));
-            64
-        }
-    };
-    let header_read_timeout = match &raw.header_read_timeout {
-        None => Duration::from_secs(10),
-        Some(h) => parse_duration(&h.value).unwrap_or_else(|e| {
-            c.push(h, "header_read_timeout", e);
-            Duration::from_secs(10)
-        }),
-    };
+    let http = http_limits(&mut c, &raw);
+    let memory_limit_bytes =
+        raw.memory_limit.as_ref().and_then(|m| parse_bytes(&m.value).map_err(|e| c.push(m, "memory_limit", e)).ok());
     let future_tolerance_ms = match &raw.future_tolerance {
         None => 86_400_000,
         Some(f) => c.duration_ms(f, "future_tolerance").unwrap_or(86_400_000),
@@ -1051,11 +1101,51 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
         state_dir,
         rescan_interval,
         max_row_bytes,
-        max_connections,
-        header_read_timeout,
+        http,
+        memory_limit_bytes,
         models,
         web: crate::export::web::WebConfig::plain(),
     })
+}
+
+/// The HTTP surface's limits, each checked against a stated range.
+fn http_limits(c: &mut Checker, raw: &RawConfig) -> HttpLimits {
+    let d = HttpLimits::default();
+    let mut int = |v: &Option<Spanned<i64>>, key: &str, lo: i64, hi: i64, default: i64| match v {
+        None => default,
+        Some(m) if (lo..=hi).contains(&m.value) => m.value,
+        Some(m) => {
+            c.push(m, key, format!("must lie in [{lo}, {hi}], got {}", m.value));
+            default
+        }
+    };
+    let max_connections = int(&raw.max_connections, "max_connections", 1, 65_536, d.max_connections as i64) as usize;
+    let max_requests_per_connection =
+        int(&raw.max_requests_per_connection, "max_requests_per_connection", 1, 1_000_000, 1000) as u32;
+    // hyper's read buffer cannot be smaller than 8 KiB; 1 MiB of headers is already hostile.
+    let max_header_bytes =
+        int(&raw.max_header_bytes, "max_header_bytes", 1024, 1 << 20, d.max_header_bytes as i64) as usize;
+    let mut dur = |v: &Option<Spanned<String>>, key: &str, default: Duration| match v {
+        None => default,
+        Some(h) => parse_duration(&h.value).unwrap_or_else(|e| {
+            c.push(h, key, e);
+            default
+        }),
+    };
+    let limits = HttpLimits {
+        max_connections,
+        header_read_timeout: dur(&raw.header_read_timeout, "header_read_timeout", d.header_read_timeout),
+        keep_alive_idle: dur(&raw.keep_alive_idle, "keep_alive_idle", d.keep_alive_idle),
+        max_requests_per_connection,
+        connection_lifetime: dur(&raw.connection_lifetime, "connection_lifetime", d.connection_lifetime),
+        max_header_bytes,
+    };
+    if let Some(l) = &raw.connection_lifetime {
+        if limits.connection_lifetime < limits.header_read_timeout {
+            c.push(l, "connection_lifetime", "must be at least header_read_timeout");
+        }
+    }
+    limits
 }
 
 impl Config {
@@ -1070,6 +1160,15 @@ impl Config {
             self.max_row_bytes,
             self.models.first().map_or(86_400, |m| m.future_tolerance_ms / 1000)
         );
+        let h = &self.http;
+        s += &format!(
+            "http: max_connections {}, header_read_timeout {:?}, keep_alive_idle {:?}, max_requests_per_connection {}, connection_lifetime {:?}, max_header_bytes {}\n",
+            h.max_connections, h.header_read_timeout, h.keep_alive_idle, h.max_requests_per_connection, h.connection_lifetime, h.max_header_bytes
+        );
+        s += &match self.memory_limit_bytes {
+            Some(b) => format!("memory_limit: {b} bytes\n"),
+            None => "memory_limit: from the cgroup at start-up, if any\n".to_string(),
+        };
         for m in &self.models {
             s += &format!(
                 "model {}:\n  loss: {}\n  confidence: {}\n  label_wait: {}s\n",

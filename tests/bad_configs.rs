@@ -139,6 +139,16 @@ const CASES: &[(&str, &str, &str, u64, &str)] = &[
     ("rescan without unit", "rescan_interval: 30s", "rescan_interval: 30", 3, "rescan_interval"),
     ("max_row_bytes too small", "max_row_bytes: 1048576", "max_row_bytes: 10", 4, "max_row_bytes"),
     ("future_tolerance negative", "future_tolerance: 1d", "future_tolerance: -1d", 5, "future_tolerance"),
+    ("max_header_bytes too small", "max_row_bytes: 1048576\n", "max_row_bytes: 1048576\nmax_header_bytes: 100\n", 5, "max_header_bytes"),
+    ("keep_alive_idle without unit", "max_row_bytes: 1048576\n", "max_row_bytes: 1048576\nkeep_alive_idle: 30\n", 5, "keep_alive_idle"),
+    (
+        "max_requests_per_connection 0",
+        "max_row_bytes: 1048576\n",
+        "max_row_bytes: 1048576\nmax_requests_per_connection: 0\n",
+        5,
+        "max_requests_per_connection",
+    ),
+    ("memory_limit unknown unit", "max_row_bytes: 1048576\n", "max_row_bytes: 1048576\nmemory_limit: 2 lots\n", 5, "memory_limit"),
     (
         "reserved window name",
         "{ name: day, span: 24h }",

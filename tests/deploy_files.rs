@@ -173,7 +173,7 @@ fn exported_names() -> BTreeSet<String> {
     let cfg = common::simple_config(
         &dir,
         port,
-        "rescan_interval: 100ms",
+        "rescan_interval: 100ms\nmemory_limit: 1GiB",
         "m",
         "    label_wait: 1d\n    sla: { max_risk: 0.2 }",
         "[{ name: all, last: 100 }]",
@@ -211,7 +211,7 @@ fn dashboard_queries_name_exported_metrics() {
     let mut named = BTreeSet::new();
     for q in &queries {
         let mut i = 0;
-        while let Some(at) = q[i..].find("riskbound_") {
+        while let Some(at) = ["riskbound_", "process_"].iter().filter_map(|p| q[i..].find(p)).min() {
             let start = i + at;
             let end =
                 start + q[start..].find(|c: char| !(c.is_ascii_alphanumeric() || c == '_')).unwrap_or(q.len() - start);
@@ -231,6 +231,9 @@ fn dashboard_queries_name_exported_metrics() {
         "riskbound_sla_state",
         "riskbound_last_ingest_timestamp_seconds",
         "riskbound_rows_rejected_total",
+        "process_resident_memory_bytes",
+        "riskbound_memory_limit_bytes",
+        "riskbound_http_connections_evicted_total",
     ] {
         assert!(named.contains(needle), "no panel shows {needle}");
     }

@@ -35,7 +35,13 @@ need = {"riskbound_risk_upper_bound", "riskbound_risk_lower_bound", "riskbound_r
         "riskbound_window_cohort_predictions", "riskbound_window_cohort_unlabelled",
         "riskbound_label_delay_median_by_outcome_seconds", "riskbound_label_delay_p90_by_outcome_seconds",
         "riskbound_label_delay_outcome_samples", "riskbound_label_delay_outcome_p_value",
-        "riskbound_label_delay_outcome_dependent"}
+        "riskbound_label_delay_outcome_dependent",
+        "riskbound_http_connections_open", "riskbound_http_connections_max", "riskbound_http_connections_accepted",
+        "riskbound_http_connections_rejected", "riskbound_http_connections_evicted",
+        "riskbound_http_connections_timed_out",
+        # The process metrics of the Prometheus client conventions, read from /proc.
+        "process_cpu_seconds", "process_resident_memory_bytes", "process_virtual_memory_bytes",
+        "process_open_fds", "process_max_fds", "process_start_time_seconds"}
 guarantees = {s.labels.get("guarantee") for f in fams if f.name == "riskbound_risk_upper_bound" for s in f.samples}
 assert guarantees == {"per-window", "delay-robust", "anytime"}, guarantees
 missing = need - names

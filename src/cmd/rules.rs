@@ -299,5 +299,20 @@ pub fn render(config: &Config, job: &str) -> String {
         summary: "riskbound cannot write its state database (disk full or read-only)".into(),
         description: "Ingest has stopped and the daemon reports not ready; committed state is kept and ingest resumes by itself once the volume accepts writes.".into(),
     });
+    // Common practice: act at 90% of a memory limit, before the kernel's OOM killer does.
+    write_rule(&mut out, &Rule {
+        alert: "RiskboundMemoryNearLimit",
+        labels: Vec::new(),
+        expr: format!(
+            "process_resident_memory_bytes{{job=\"{job}\"}} / on(job, instance) riskbound_memory_limit_bytes{{job=\"{job}\"}} > {MEMORY_TICKET_RATIO}"
+        ),
+        for_: Some("15m"),
+        severity: "ticket",
+        summary: format!("riskbound on {{{{ $labels.instance }}}} uses over {:.0}% of its memory limit", MEMORY_TICKET_RATIO * 100.0),
+        description: "Resident memory is near the container's limit (config memory_limit, else the cgroup); past it the kernel kills riskbound, which restarts and resumes from its state. Raise the limit or shorten the windows.".into(),
+    });
     out
 }
+
+/// The fraction of the memory limit past which the memory ticket fires.
+pub const MEMORY_TICKET_RATIO: f64 = 0.9;

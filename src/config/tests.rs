@@ -147,3 +147,16 @@ fn r_fuzz_config_an_empty_key_is_named() {
     let (_, _, key, reason) = one("'':\t\u{0}\u{0}''\n");
     assert_eq!(key, "\"\"", "{reason}");
 }
+
+#[test]
+fn byte_sizes() {
+    // Binary and decimal units as Kubernetes resource quantities write them.
+    assert_eq!(parse_bytes("256Mi").unwrap(), 256 << 20);
+    assert_eq!(parse_bytes("1GiB").unwrap(), 1 << 30);
+    assert_eq!(parse_bytes("512 MB").unwrap(), 512_000_000);
+    assert_eq!(parse_bytes("4096").unwrap(), 4096);
+    assert!(parse_bytes("0").is_err());
+    assert!(parse_bytes("2 lots").unwrap_err().contains("unknown unit"));
+    assert!(parse_bytes("99999999999999999999Gi").is_err());
+    assert!(parse_bytes("-1Mi").is_err());
+}

@@ -27,6 +27,10 @@ pub struct Health {
     pub state_write_failures: std::sync::atomic::AtomicU64,
     /// 1 while the last commit attempt failed, 0 once commits succeed again.
     pub state_unwritable: std::sync::atomic::AtomicBool,
+    /// The HTTP listener's connection counts.
+    pub listener: Arc<super::server::ListenerStats>,
+    /// The container's memory limit, when known (config or cgroup).
+    pub memory_limit_bytes: Option<u64>,
 }
 
 /// Metric names (without the `_total` the encoder adds to counters), for tests and docs.
@@ -72,6 +76,20 @@ pub mod names {
     pub const DELAY_OUTCOME_SAMPLES: &str = "riskbound_label_delay_outcome_samples";
     pub const DELAY_OUTCOME_P: &str = "riskbound_label_delay_outcome_p_value";
     pub const DELAY_OUTCOME_DEPENDENT: &str = "riskbound_label_delay_outcome_dependent";
+    pub const HTTP_OPEN: &str = "riskbound_http_connections_open";
+    pub const HTTP_ACCEPTED: &str = "riskbound_http_connections_accepted";
+    pub const HTTP_REJECTED: &str = "riskbound_http_connections_rejected";
+    pub const HTTP_EVICTED: &str = "riskbound_http_connections_evicted";
+    pub const HTTP_TIMED_OUT: &str = "riskbound_http_connections_timed_out";
+    pub const HTTP_MAX: &str = "riskbound_http_connections_max";
+    pub const MEMORY_LIMIT: &str = "riskbound_memory_limit_bytes";
+    // The process metrics of the Prometheus client conventions, under their standard names.
+    pub const PROCESS_CPU: &str = "process_cpu_seconds";
+    pub const PROCESS_RSS: &str = "process_resident_memory_bytes";
+    pub const PROCESS_VIRTUAL: &str = "process_virtual_memory_bytes";
+    pub const PROCESS_OPEN_FDS: &str = "process_open_fds";
+    pub const PROCESS_MAX_FDS: &str = "process_max_fds";
+    pub const PROCESS_START: &str = "process_start_time_seconds";
 }
 
 /// The `guarantee` label value of the delay-robust window bounds (with δ spending, the spent
@@ -92,6 +110,7 @@ type Labels = Vec<(&'static str, String)>;
 struct SnapshotCollector {
     snapshot: SharedSnapshot,
     health: Arc<Health>,
+    max_connections: usize,
 }
 
 fn family<M: EncodeMetric>(
@@ -449,14 +468,74 @@ impl Collector for SnapshotCollector {
             "1 while the state database refuses commits (the daemon is then not ready), else 0",
             [(Labels::new(), f64::from(u8::from(self.health.state_unwritable.load(SeqCst))))],
         )?;
+        self.encode_footprint(e)
+    }
+}
+
+impl SnapshotCollector {
+    /// The listener's connection counts, the process's resources and the memory limit.
+    fn encode_footprint(&self, e: &mut DescriptorEncoder) -> Result<(), std::fmt::Error> {
+        use std::sync::atomic::Ordering::Relaxed;
+        let l = &self.health.listener;
+        let one = |v: f64| [(Labels::new(), v)];
+        gauges(e, names::HTTP_OPEN, "HTTP connections open now", one(l.open.load(Relaxed) as f64))?;
+        gauges(
+            e,
+            names::HTTP_MAX,
+            "HTTP connections allowed at once (max_connections)",
+            one(self.max_connections as f64),
+        )?;
+        for (name, help, v) in [
+            (names::HTTP_ACCEPTED, "HTTP connections accepted", &l.accepted),
+            (names::HTTP_REJECTED, "HTTP connections refused because every slot was serving a request", &l.rejected),
+            (
+                names::HTTP_EVICTED,
+                "HTTP connections closed, while not serving a request, to admit a newer one",
+                &l.evicted,
+            ),
+            (
+                names::HTTP_TIMED_OUT,
+                "HTTP connections closed at a deadline (handshake, headers, keep-alive idle, lifetime)",
+                &l.timed_out,
+            ),
+        ] {
+            counters(e, name, help, [(Labels::new(), v.load(Relaxed))])?;
+        }
+        if let Some(limit) = self.health.memory_limit_bytes {
+            gauges(
+                e,
+                names::MEMORY_LIMIT,
+                "Memory limit of riskbound's container (config memory_limit, else its cgroup)",
+                one(limit as f64),
+            )?;
+        }
+        let Some(p) = super::process::read() else { return Ok(()) };
+        let mut cpu = e.encode_descriptor(
+            names::PROCESS_CPU,
+            "Total user and system CPU time spent in seconds.",
+            None,
+            MetricType::Counter,
+        )?;
+        prometheus_client::metrics::counter::ConstCounter::new(p.cpu_seconds)
+            .encode(cpu.encode_family(&Labels::new())?)?;
+        gauges(e, names::PROCESS_RSS, "Resident memory size in bytes.", one(p.resident_bytes))?;
+        gauges(e, names::PROCESS_VIRTUAL, "Virtual memory size in bytes.", one(p.virtual_bytes))?;
+        gauges(e, names::PROCESS_OPEN_FDS, "Number of open file descriptors.", one(p.open_fds))?;
+        gauges(e, names::PROCESS_MAX_FDS, "Maximum number of open file descriptors.", one(p.max_fds))?;
+        gauges(
+            e,
+            names::PROCESS_START,
+            "Start time of the process since unix epoch in seconds.",
+            one(p.start_time_seconds),
+        )?;
         Ok(())
     }
 }
 
 /// A registry whose every scrape encodes the current snapshot.
-pub fn registry(snapshot: SharedSnapshot, health: Arc<Health>) -> Registry {
+pub fn registry(snapshot: SharedSnapshot, health: Arc<Health>, max_connections: usize) -> Registry {
     let mut r = Registry::default();
-    r.register_collector(Box::new(SnapshotCollector { snapshot, health }));
+    r.register_collector(Box::new(SnapshotCollector { snapshot, health, max_connections }));
     r
 }
 
@@ -511,7 +590,7 @@ mod tests {
             delay_dependence: crate::estimate::delay_dependence::test(&[], 1.0, true, 0.05),
         };
         let snap: SharedSnapshot = Arc::new(RwLock::new(Arc::new(Snapshot { models: vec![model] })));
-        let text = render(&registry(snap, Arc::new(Health::default())));
+        let text = render(&registry(snap, Arc::new(Health::default()), 64));
         assert!(text.contains(r#"riskbound_window_samples{model="a\"b\\c\nd",window="w\"1"} 3"#), "{text}");
         assert!(!text.lines().any(|l| l == "d\",window=\"w\\\"1\"} 3"), "no raw newline inside a label");
         // tests/exposition_check.sh runs promtool on this file too.

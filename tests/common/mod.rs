@@ -3,6 +3,7 @@
 #![allow(dead_code)] // each test binary uses its own subset
 
 pub mod join_model;
+pub mod tls;
 
 use std::collections::BTreeMap;
 use std::io::{Read, Write};
