@@ -382,6 +382,15 @@ impl Pipeline {
     }
 }
 
+/// The listen address could not be bound (taken, or not this host's): the user's to fix.
+#[derive(Debug, thiserror::Error)]
+#[error("binding {addr}: {source}")]
+pub struct BindError {
+    pub addr: std::net::SocketAddr,
+    #[source]
+    pub source: std::io::Error,
+}
+
 /// Starts the daemon: opens the state, binds the listener, resumes, then serves and ingests.
 pub fn start(config: Config) -> anyhow::Result<Running> {
     std::fs::create_dir_all(&config.state_dir)
@@ -393,7 +402,7 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         .context("starting the async runtime")?;
     let listener = runtime
         .block_on(tokio::net::TcpListener::bind(config.listen))
-        .with_context(|| format!("binding {}", config.listen))?;
+        .map_err(|source| BindError { addr: config.listen, source })?;
     let addr = listener.local_addr()?;
 
     let snapshot: SharedSnapshot = Arc::new(RwLock::new(Arc::new(Snapshot::default())));

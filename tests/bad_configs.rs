@@ -20,7 +20,7 @@ models:
     labels:
       dir: in
       pattern: \"label-*.csv\"
-      columns: { id: request_id, time: observed, label: actual }
+      columns: { id: request_id, time: observed, label: outcome }
     loss: zero-one
     confidence: 0.95
     label_wait: 7d
@@ -110,8 +110,8 @@ const CASES: &[(&str, &str, &str, u64, &str)] = &[
     ),
     (
         "missing id column",
-        "{ id: request_id, time: observed, label: actual }",
-        "{ time: observed, label: actual }",
+        "{ id: request_id, time: observed, label: outcome }",
+        "{ time: observed, label: outcome }",
         15,
         "models[0].labels.columns.id",
     ),

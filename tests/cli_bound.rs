@@ -61,8 +61,8 @@ const LOSS: &[&str] = &["--loss-column", "loss", "--loss-max", "1"];
 fn json_shape_and_values_for_zero_one_predictions() {
     let d = Dir::new("shape");
     // 3 errors in 8 rows.
-    let f = d.file("b.csv", b"id,predicted,actual\n1,late,late\n2,late,on-time\n3,on-time,on-time\n4,on-time,late\n5,late,late\n6,on-time,on-time\n7,late,on-time\n8,on-time,on-time\n");
-    let v = bound_json(&f, &["--prediction-column", "predicted", "--label-column", "actual", "--loss", "zero-one"]);
+    let f = d.file("b.csv", b"id,predicted,outcome\n1,late,late\n2,late,on-time\n3,on-time,on-time\n4,on-time,late\n5,late,late\n6,on-time,on-time\n7,late,on-time\n8,on-time,on-time\n");
+    let v = bound_json(&f, &["--prediction-column", "predicted", "--label-column", "outcome", "--loss", "zero-one"]);
     assert_eq!(v["confidence"], 0.95);
     let groups = v["groups"].as_array().unwrap();
     assert_eq!(groups.len(), 1);

@@ -248,6 +248,7 @@ fn registered_slices_get_fixed_predictor_bounds_at_delta_over_m() {
             "w",
             "--sla-max-risk",
             "0.1",
+            "--json",
         ];
         args.extend_from_slice(extra);
         let out = riskbound(&args);
@@ -283,6 +284,45 @@ fn registered_slices_get_fixed_predictor_bounds_at_delta_over_m() {
             "--registered",
             "colour=red",
         ],
-        "\"colour\" is not a --categorical feature",
+        "\"colour\" is not one of the categorical features",
     );
+}
+
+#[test]
+fn without_json_a_table_for_people_and_no_group_by_flag() {
+    let dir = TempDir::new("slices-table");
+    let f = planted(&dir);
+    let base = [
+        "slices",
+        &f,
+        "--prediction-column",
+        "p",
+        "--label-column",
+        "y",
+        "--loss",
+        "zero-one",
+        "--categorical",
+        "region,carrier",
+        "--sla-max-risk",
+        "0.15",
+        "--seed",
+        "7",
+    ];
+    let out = riskbound(&base);
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(serde_json::from_str::<Value>(&text).is_err(), "the default output is not JSON");
+    assert!(text.contains("uniform certificate: deviation") && text.contains("rank"), "{text}");
+    // The table names the same first slice as the JSON document.
+    let mut with_json = base.to_vec();
+    with_json.push("--json");
+    let doc: Value = serde_json::from_slice(&riskbound(&with_json).stdout).unwrap();
+    let first = doc["slices"][0]["description"].as_str().unwrap();
+    assert!(text.lines().any(|l| l.starts_with("1 ") && l.contains(first)), "{first} not first in\n{text}");
+    // --group-by is not offered: slices searches the groups itself.
+    let help = String::from_utf8(riskbound(&["slices", "--help"]).stdout).unwrap();
+    assert!(!help.contains("--group-by"), "{help}");
+    let mut grouped = base.to_vec();
+    grouped.extend(["--group-by", "region"]);
+    assert_eq!(riskbound(&grouped).status.code(), Some(2));
 }

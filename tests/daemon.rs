@@ -18,7 +18,7 @@ rescan_interval: 200ms
 models:
   - name: courier
     predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: request_id, time: ts, prediction: predicted }} }}
-    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: request_id, time: observed, label: actual }} }}
+    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: request_id, time: observed, label: outcome }} }}
     confidence: 0.95
     label_wait: 1d
     windows:
@@ -36,7 +36,7 @@ models:
 /// 100 predictions, 10 s apart; the ones listed in `wrong` get a different label.
 fn batches(wrong: &[usize]) -> (String, String) {
     let mut pred = String::from("request_id,ts,region,predicted\n");
-    let mut label = String::from("request_id,observed,actual\n");
+    let mut label = String::from("request_id,observed,outcome\n");
     for i in 0..100 {
         let p = if i % 3 == 0 { "late" } else { "on-time" };
         let y = if wrong.contains(&i) {
@@ -211,7 +211,7 @@ fn duplicate_ids_and_conflicting_labels_are_rejected_not_double_counted() {
     // r000 labelled again: the same label (duplicate), then a different one (conflict).
     dir.drop_file(
         "label-0002.csv",
-        &format!("request_id,observed,actual\nr000,{},late\nr002,{},late\n", T + 50_000, T + 50_000),
+        &format!("request_id,observed,outcome\nr000,{},late\nr002,{},late\n", T + 50_000, T + 50_000),
     );
     d.wait_files("courier", "label", 2.0);
     let m = d.metrics();
@@ -254,7 +254,7 @@ fn unlabelled_predictions_expire_after_label_wait_by_event_time() {
     d.wait_files("courier", "prediction", 1.0);
     // A prediction two days later moves event time past old's one-day wait.
     dir.drop_file("pred-0002.csv", &format!("request_id,ts,predicted\nnew,{},late\n", T + 2 * 86_400));
-    dir.drop_file("label-0001.csv", &format!("request_id,observed,actual\nold,{},late\n", T + 2 * 86_400 + 5));
+    dir.drop_file("label-0001.csv", &format!("request_id,observed,outcome\nold,{},late\n", T + 2 * 86_400 + 5));
     d.wait_files("courier", "label", 1.0);
     let m = d.metrics();
     assert_eq!(m.get("riskbound_predictions_expired_total", &[("model", "courier")]), Some(1.0));
@@ -332,7 +332,7 @@ fn two_models_on_one_folder_each_take_every_file_once() {
         format!(
             "  - name: {name}
     predictions: {{ dir: in, pattern: \"pred-*.csv\", columns: {{ id: request_id, time: ts, prediction: predicted }} }}
-    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: request_id, time: observed, label: actual }} }}
+    labels: {{ dir: in, pattern: \"label-*.csv\", columns: {{ id: request_id, time: observed, label: outcome }} }}
     label_wait: 1d
     windows: [ {{ name: all, last: 1000 }} ]
 "

@@ -194,6 +194,13 @@ fn exported_names() -> BTreeSet<String> {
 fn dashboard_queries_name_exported_metrics() {
     let text = std::fs::read_to_string(repo("deploy/dashboard/riskbound.json")).unwrap();
     let dash: Value = serde_json::from_str(&text).expect("the dashboard is JSON");
+    // The description sends the reader to a file that exists, and that file names every panel.
+    let about = dash["description"].as_str().unwrap();
+    let target = about.split_whitespace().find(|w| w.starts_with("deploy/")).expect("a path in the description");
+    let readme = std::fs::read_to_string(repo(target)).unwrap_or_else(|e| panic!("{target}: {e}"));
+    for p in dash["panels"].as_array().unwrap() {
+        assert!(readme.contains(p["title"].as_str().unwrap()), "{target} does not describe panel {}", p["title"]);
+    }
     let mut queries = Vec::new();
     for p in dash["panels"].as_array().unwrap() {
         assert!(p["title"].is_string() && p["gridPos"].is_object(), "{p}");

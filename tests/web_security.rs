@@ -107,5 +107,19 @@ fn bad_web_configs_stop_the_daemon_with_a_located_error() {
         assert_eq!(out.status.code(), Some(2), "{web}: {err}");
         let want = format!("{}:{line}:", dir.path("web.yaml").display());
         assert!(err.contains(&want) && err.contains(&format!(": {key}: ")), "{web}: {err}");
+        // check-config validates the web config with the config, and says the same.
+        let checked = Command::new(bin())
+            .args(["check-config", cfg.to_str().unwrap(), "--web-config", dir.path("web.yaml").to_str().unwrap()])
+            .output()
+            .unwrap();
+        assert_eq!(checked.status.code(), Some(2), "{web}");
+        assert_eq!(String::from_utf8_lossy(&checked.stderr), err, "{web}");
     }
+    std::fs::write(dir.path("web.yaml"), "tls_server_config: { cert_file: cert.pem, key_file: key.pem }\n").unwrap();
+    let ok = Command::new(bin())
+        .args(["check-config", cfg.to_str().unwrap(), "--web-config", dir.path("web.yaml").to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(ok.status.success(), "{}", String::from_utf8_lossy(&ok.stderr));
+    assert!(String::from_utf8_lossy(&ok.stdout).contains("web: TLS, basic auth off"));
 }

@@ -46,27 +46,8 @@ pub struct DemoArgs {
     pub ms_per_hour: u64,
 }
 
-/// A small deterministic generator (SplitMix64): the scenario is the same on every run.
-struct Rng(u64);
-
-impl Rng {
-    fn next(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-    fn uniform(&mut self) -> f64 {
-        (self.next() >> 11) as f64 / (1u64 << 53) as f64
-    }
-    fn below(&mut self, n: u64) -> u64 {
-        self.next() % n
-    }
-}
-
 const REGIONS: [&str; 4] = ["north", "south", "west", "north-east"];
-const CARRIERS: [&str; 3] = ["swiftline", "parcelpost", "roadrunner"];
+const CARRIERS: [&str; 3] = ["carrier-amber", "carrier-birch", "carrier-cobalt"];
 /// 2026-11-02T00:00:00Z, the scenario's first hour.
 const T0: i64 = 1_793_577_600;
 const HOUR: i64 = 3600;
@@ -74,7 +55,7 @@ const HOUR: i64 = 3600;
 struct Pending {
     arrives: i64,
     id: String,
-    actual: &'static str,
+    outcome: &'static str,
 }
 
 /// The demo's config: two windows and a 10% SLA.
@@ -89,7 +70,7 @@ models:
     predictions:
       {{ dir: batches, pattern: \"pred-*.csv\", columns: {{ id: request_id, time: ts, prediction: predicted }} }}
     labels:
-      {{ dir: batches, pattern: \"label-*.csv\", columns: {{ id: request_id, time: observed, label: actual }} }}
+      {{ dir: batches, pattern: \"label-*.csv\", columns: {{ id: request_id, time: observed, label: outcome }} }}
     loss: zero-one
     confidence: 0.95
     label_wait: 5d
@@ -223,6 +204,12 @@ pub fn table(snap: &Snapshot) -> String {
 }
 
 /// Runs the demo.
+/// `riskbound demo`: logs for people, then the scenario.
+pub fn main(a: &DemoArgs) -> anyhow::Result<()> {
+    super::run::init_logs(super::cli::LogFormat::Human);
+    run(a)
+}
+
 pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
     let (root, keep) = match &a.dir {
         Some(d) => (d.clone(), true),
@@ -247,7 +234,8 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
     );
     println!("sequences and alarms take predictions in prediction-time order once label_wait (5d) is over.\n");
 
-    let mut rng = Rng(20_261_201);
+    // The project's one seeded generator: the scenario is the same on every run.
+    let mut rng = crate::estimate::seeded::Seeded::new(20_261_201);
     let mut pending: Vec<Pending> = Vec::new();
     let hours = i64::from(a.days) * 24;
     let mut next_id = 0u64;
@@ -260,11 +248,11 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
             let id = format!("p{next_id:07}");
             next_id += 1;
             let region = REGIONS[rng.below(4) as usize];
-            let actual = if rng.uniform() < 0.3 { "late" } else { "on-time" };
+            let outcome = if rng.uniform() < 0.3 { "late" } else { "on-time" };
             // The model mostly misses late parcels: about 6% wrong overall, 25% in the
             // north-east from day 12 on.
             let shifted = region == "north-east" && day >= 12;
-            let err = match (actual, shifted) {
+            let err = match (outcome, shifted) {
                 ("late", false) => 0.15,
                 ("late", true) => 0.6,
                 (_, false) => 0.022,
@@ -272,13 +260,13 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
             };
             let wrong = rng.uniform() < err;
             let predicted = if wrong {
-                if actual == "late" {
+                if outcome == "late" {
                     "on-time"
                 } else {
                     "late"
                 }
             } else {
-                actual
+                outcome
             };
             let ts = t + rng.below(HOUR as u64) as i64;
             let _ = writeln!(
@@ -290,12 +278,12 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
             );
             if rng.uniform() < 0.98 {
                 // A late parcel is known late only once its promised time has passed.
-                let delay = if actual == "late" {
+                let delay = if outcome == "late" {
                     3 * 86_400 + rng.below(86_400) as i64
                 } else {
                     43_200 + rng.below(86_400) as i64
                 };
-                pending.push(Pending { arrives: ts + delay, id, actual });
+                pending.push(Pending { arrives: ts + delay, id, outcome });
             }
         }
         publish(&batches, &format!("pred-{}.csv", stamp(t)), &body)?;
@@ -303,9 +291,9 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
         let (due, rest): (Vec<Pending>, Vec<Pending>) = pending.drain(..).partition(|p| p.arrives < t + HOUR);
         pending = rest;
         if !due.is_empty() {
-            let mut body = String::from("request_id,observed,actual\n");
+            let mut body = String::from("request_id,observed,outcome\n");
             for p in &due {
-                let _ = writeln!(body, "{},{},{}", p.id, p.arrives, p.actual);
+                let _ = writeln!(body, "{},{},{}", p.id, p.arrives, p.outcome);
             }
             publish(&batches, &format!("label-{}.csv", stamp(t)), &body)?;
         }

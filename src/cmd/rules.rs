@@ -316,3 +316,10 @@ pub fn render(config: &Config, job: &str) -> String {
 
 /// The fraction of the memory limit past which the memory ticket fires.
 pub const MEMORY_TICKET_RATIO: f64 = 0.9;
+
+/// `riskbound rules`: the rules file for a config, on standard output.
+pub fn main(a: &super::cli::RulesArgs) -> anyhow::Result<()> {
+    let config = crate::config::load(&a.config)?;
+    print!("{}", render(&config, &a.job));
+    Ok(())
+}

@@ -153,3 +153,13 @@ pub fn run<R: Read, W: Write>(plan: &Plan, src: R, out: &mut W, as_json: bool) -
     }
     Ok(())
 }
+
+/// `riskbound track`: plan, replay, print a table or JSON lines as it goes.
+pub fn main(a: &super::cli::TrackArgs) -> anyhow::Result<()> {
+    let plan = a.plan()?;
+    let stdout = std::io::stdout();
+    let mut out = std::io::BufWriter::new(stdout.lock());
+    a.input.with_reader(|src| Ok(run(&plan, src, &mut out, a.json)?))?;
+    out.flush()?;
+    Ok(())
+}

@@ -12,7 +12,7 @@ state_dir: state
 models:
   - name: parcel-late
     predictions: { dir: in, pattern: \"pred-*.csv\", columns: { id: request_id, time: ts, prediction: predicted } }
-    labels: { dir: in, pattern: \"label-*.csv\", columns: { id: request_id, time: observed, label: actual } }
+    labels: { dir: in, pattern: \"label-*.csv\", columns: { id: request_id, time: observed, label: outcome } }
     loss: zero-one
     confidence: 0.95
     label_wait: 7d

@@ -16,6 +16,7 @@ pub mod delay_dependence;
 pub mod delay_robust;
 pub mod hoeffding;
 pub mod kl;
+pub mod seeded;
 pub mod sla;
 pub mod slices;
 pub mod special;

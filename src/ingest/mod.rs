@@ -4,6 +4,7 @@
 //! read (`riskbound bound`) or is counted and skipped (the daemon).
 
 pub mod decode;
+pub mod losses;
 pub mod reader;
 pub mod records;
 pub mod watch;

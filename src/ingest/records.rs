@@ -6,6 +6,23 @@ use std::fmt;
 
 use super::decode::{for_each_row, DecodeError, Format};
 
+/// Whether a file holds predictions or labels. The names are the `kind` label values.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Kind {
+    Prediction,
+    Label,
+}
+
+impl Kind {
+    /// The label value.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Kind::Prediction => "prediction",
+            Kind::Label => "label",
+        }
+    }
+}
+
 /// Why a row was not used. The names are the `reason` label of `riskbound_rows_rejected_total`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum RejectReason {

@@ -9,8 +9,8 @@ use std::time::SystemTime;
 
 use notify::{RecommendedWatcher, RecursiveMode, Watcher};
 
+use super::records::Kind;
 use crate::config::ModelConfig;
-use crate::window::Kind;
 
 /// A file that may hold a batch for a model.
 #[derive(Clone, Debug, PartialEq, Eq)]

@@ -14,25 +14,9 @@ use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
 use crate::config::{ModelConfig, WindowConfig, WindowKind};
 use crate::estimate::anytime::Tracker;
 use crate::estimate::delay_robust::Cohort;
+pub use crate::ingest::records::Kind;
 use crate::ingest::records::{Record, Reject, RejectReason};
 use crate::loss::{self, LossSpec};
-
-/// Whether a file holds predictions or labels. The names are the `kind` label values.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
-pub enum Kind {
-    Prediction,
-    Label,
-}
-
-impl Kind {
-    /// The label value.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Kind::Prediction => "prediction",
-            Kind::Label => "label",
-        }
-    }
-}
 
 /// Upper bounds (seconds) of the label-delay histogram buckets: a minute to two weeks.
 pub const DELAY_BUCKETS: [f64; 12] =

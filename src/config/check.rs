@@ -1,0 +1,91 @@
+//! The checker that walks the raw config collecting located issues, and the small parsers
+//! every section shares (durations, byte sizes, names, ranges).
+
+use super::*;
+
+/// Parses a duration such as `30s`, `15m`, `24h`, `7d` or `500ms`.
+pub fn parse_duration(s: &str) -> Result<Duration, String> {
+    let s = s.trim();
+    let split = s
+        .find(|c: char| !c.is_ascii_digit() && c != '.')
+        .ok_or_else(|| format!("{s:?} has no unit (ms, s, m, h, d)"))?;
+    let (num, unit) = s.split_at(split);
+    let v: f64 = num.parse().map_err(|_| format!("{s:?} is not a duration"))?;
+    let secs = match unit {
+        "ms" => v / 1000.0,
+        "s" => v,
+        "m" => v * 60.0,
+        "h" => v * 3600.0,
+        "d" => v * 86400.0,
+        _ => return Err(format!("{s:?}: unknown unit {unit:?} (ms, s, m, h, d)")),
+    };
+    if !secs.is_finite() || secs <= 0.0 {
+        return Err(format!("{s:?} must be positive"));
+    }
+    // Past u64::MAX seconds a Duration cannot hold it (found by the config fuzz target).
+    Duration::try_from_secs_f64(secs).map_err(|_| format!("{s:?} is too long"))
+}
+
+pub(super) fn valid_name(s: &str) -> bool {
+    !s.is_empty() && s.bytes().all(|b| b.is_ascii_lowercase() || b.is_ascii_digit() || b == b'-' || b == b'_')
+}
+
+/// Parses a byte size: a plain number, or one with a unit (`KiB`/`Ki`, `MiB`/`Mi`, `GiB`/`Gi`,
+/// and the decimal `kB`, `MB`, `GB`), as Kubernetes resource quantities are written.
+pub fn parse_bytes(s: &str) -> Result<u64, String> {
+    let t = s.trim();
+    let split = t.find(|c: char| !c.is_ascii_digit()).unwrap_or(t.len());
+    let (num, unit) = t.split_at(split);
+    let v: u64 = num.parse().map_err(|_| format!("{s:?} is not a size such as 512MiB"))?;
+    let mult: u64 = match unit.trim() {
+        "" | "B" => 1,
+        "KiB" | "Ki" => 1 << 10,
+        "MiB" | "Mi" => 1 << 20,
+        "GiB" | "Gi" => 1 << 30,
+        "kB" | "k" => 1_000,
+        "MB" | "M" => 1_000_000,
+        "GB" | "G" => 1_000_000_000,
+        u => return Err(format!("{s:?}: unknown unit {u:?} (KiB, MiB, GiB, kB, MB, GB)")),
+    };
+    match v.checked_mul(mult) {
+        Some(0) => Err(format!("{s:?} must be positive")),
+        Some(b) => Ok(b),
+        None => Err(format!("{s:?} is too large")),
+    }
+}
+
+/// Collects issues while walking the raw config.
+pub(super) struct Checker {
+    pub(super) base: PathBuf,
+    pub(super) issues: Vec<ConfigIssue>,
+}
+
+impl Checker {
+    pub(super) fn push<T>(&mut self, at: &Spanned<T>, key: &str, reason: impl fmt::Display) {
+        self.issues.push(ConfigIssue {
+            line: at.referenced.line(),
+            column: at.referenced.column(),
+            key: key.to_string(),
+            reason: reason.to_string(),
+        });
+    }
+
+    pub(super) fn path(&self, s: &str) -> PathBuf {
+        let p = Path::new(s);
+        if p.is_absolute() {
+            p.to_path_buf()
+        } else {
+            self.base.join(p)
+        }
+    }
+
+    pub(super) fn duration_ms(&mut self, raw: &Spanned<String>, key: &str) -> Option<i64> {
+        match parse_duration(&raw.value) {
+            Ok(d) => Some(d.as_millis().min(i64::MAX as u128) as i64),
+            Err(e) => {
+                self.push(raw, key, e);
+                None
+            }
+        }
+    }
+}

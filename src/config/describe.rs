@@ -1,0 +1,107 @@
+//! The resolved settings, as `check-config` prints them.
+
+use super::*;
+
+impl Config {
+    /// The resolved settings, as `check-config` prints them.
+    pub fn describe(&self) -> String {
+        let mut s = format!(
+            "config: {}\nlisten: {}\nstate_dir: {}\nrescan_interval: {:?}\nmax_row_bytes: {}\nfuture_tolerance: {}s\n",
+            self.file.display(),
+            self.listen,
+            self.state_dir.display(),
+            self.rescan_interval,
+            self.max_row_bytes,
+            self.models.first().map_or(86_400, |m| m.future_tolerance_ms / 1000)
+        );
+        let h = &self.http;
+        s += &format!(
+            "http: max_connections {}, header_read_timeout {:?}, keep_alive_idle {:?}, max_requests_per_connection {}, connection_lifetime {:?}, max_header_bytes {}\n",
+            h.max_connections, h.header_read_timeout, h.keep_alive_idle, h.max_requests_per_connection, h.connection_lifetime, h.max_header_bytes
+        );
+        s += &match self.memory_limit_bytes {
+            Some(b) => format!("memory_limit: {b} bytes\n"),
+            None => "memory_limit: from the cgroup at start-up, if any\n".to_string(),
+        };
+        s += &format!(
+            "web: {}, basic auth {}\n",
+            if self.web.tls.is_some() { "TLS" } else { "plain HTTP" },
+            if self.web.users.is_empty() { "off".to_string() } else { format!("for {} user(s)", self.web.users.len()) }
+        );
+        for m in &self.models {
+            s += &format!(
+                "model {}:\n  loss: {}\n  confidence: {}\n  label_wait: {}s\n",
+                m.name,
+                m.loss,
+                m.confidence.level(),
+                m.label_wait_ms / 1000
+            );
+            for (kind, src) in [("predictions", &m.predictions), ("labels", &m.labels)] {
+                s += &format!(
+                    "  {kind}: {}/{} (format: {}; id: {}, time: {}, value: {})\n",
+                    src.dir.display(),
+                    src.pattern,
+                    src.format.map_or("by extension", |f| if f == Format::Csv { "csv" } else { "jsonl" }),
+                    src.id_column,
+                    src.time_column,
+                    src.value_column
+                );
+            }
+            for w in &m.windows {
+                let what = match (w.kind, w.mature) {
+                    (WindowKind::Last(n), false) => {
+                        format!("newest {n} labelled samples; cohort: the newest {n} predictions, labelled or not")
+                    }
+                    (WindowKind::SpanMs(ms), false) => {
+                        format!("prediction time within {}s of the newest prediction", ms / 1000)
+                    }
+                    (WindowKind::Last(n), true) => format!("the newest {n} predictions whose label_wait is over"),
+                    (WindowKind::SpanMs(ms), true) => {
+                        format!("prediction time within {}s, ending label_wait before the newest prediction", ms / 1000)
+                    }
+                };
+                s += &format!("  window {}: {what}\n", w.name);
+            }
+            match &m.sla {
+                Some(sla) => {
+                    s += &format!(
+                        "  sla: max_risk {} decided by {} on the {} bounds (min_samples {}, min_label_coverage {})\n",
+                        sla.max_risk,
+                        sla.method,
+                        sla.decide_on.as_str(),
+                        sla.min_samples,
+                        sla.min_label_coverage
+                    );
+                    if sla.decide_on == DecideOn::LabelledOnly {
+                        s += &format!("  caution: {LABELLED_ONLY_CAUTION}\n");
+                    }
+                }
+                None => s += "  sla: none\n",
+            }
+            s += &format!("  window bounds: {}\n", m.window_guarantee.as_str());
+            if let Some(sla) = &m.sla {
+                let delta = m.confidence.delta();
+                s += &format!(
+                    "  alarms (anytime, each false with probability <= {delta:.3e}): exceeded since reset (risk > {}); \
+                     change (rise above {}; P(false alarm in the first {} labels) <= {delta:.3e})\n",
+                    sla.max_risk, sla.max_risk, sla.change_horizon
+                );
+                if let Some(r) = &sla.reference {
+                    s += &format!(
+                        "  shift: reference {} (n {}, mean {:.6}, upper {:.6} at confidence {}) + tolerance {} = {:.6}; \
+                         false alarm probability <= {:.3e}\n",
+                        r.file.display(),
+                        r.n,
+                        r.mean,
+                        r.upper,
+                        r.confidence.level(),
+                        r.tolerance,
+                        r.max_risk(),
+                        r.confidence.delta() + delta
+                    );
+                }
+            }
+        }
+        s
+    }
+}
