@@ -39,6 +39,7 @@ pub struct Running {
     server: Option<tokio::task::JoinHandle<std::io::Result<()>>>,
     /// Rounds completed by the pipeline (a round lists every directory once).
     pub rounds: Arc<std::sync::atomic::AtomicU64>,
+    grace: Duration,
 }
 
 fn now_ms() -> i64 {
@@ -496,6 +497,7 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         runtime,
         server: Some(server),
         rounds,
+        grace: config.shutdown_grace_period,
     })
 }
 
@@ -517,7 +519,24 @@ impl Running {
     pub fn shutdown(mut self) -> anyhow::Result<()> {
         self.stop.store(true, Ordering::SeqCst);
         let _ = self.wake.send(());
-        let pipeline = self.pipeline.take().expect("shutdown runs once").join();
+        let handle = self.pipeline.take().expect("shutdown runs once");
+        // The pipeline stops between files; a file still being read gets the grace period.
+        let deadline = Instant::now() + self.grace;
+        while !handle.is_finished() && Instant::now() < deadline {
+            std::thread::sleep(Duration::from_millis(10));
+        }
+        if !handle.is_finished() {
+            // Exiting drops the open transaction: SQLite rolls it back, so the file is read
+            // again from the start by the next process, and nothing is counted twice.
+            tracing::warn!(
+                grace = ?self.grace,
+                "stopped forcibly: the file being read did not finish within shutdown_grace_period; its transaction is rolled back and the file is read again at the next start"
+            );
+            self.server_stop.notify_waiters();
+            self.server_stop.notify_one();
+            return Ok(());
+        }
+        let pipeline = handle.join();
         self.server_stop.notify_waiters();
         self.server_stop.notify_one();
         if let Some(s) = self.server.take() {
@@ -527,7 +546,7 @@ impl Running {
             Ok(r) => r?,
             Err(_) => anyhow::bail!("the pipeline thread panicked"),
         }
-        tracing::info!("stopped cleanly");
+        tracing::info!("stopped gracefully");
         Ok(())
     }
 

@@ -148,3 +148,32 @@ fn bad_input_is_located_and_exits_2() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("no data rows"));
 }
+
+/// Regression: a drifting file pins the running intersection of betting-cs while the mean moves
+/// on (it collapses, or crosses: lower above upper). That is said, in the table and the JSON.
+#[test]
+fn a_crossed_sequence_is_said_in_words() {
+    let dir = TempDir::new("track-crossed");
+    // 1 wrong in 20 for 2000 rows, then 3 in 5: the risk is not constant.
+    let mut csv = String::from("id,p,y\n");
+    for i in 0..4000 {
+        let wrong = if i < 2000 { i % 20 == 0 } else { i % 5 < 3 };
+        csv += &format!("{i},1,{}\n", if wrong { 0 } else { 1 });
+    }
+    std::fs::write(dir.path("d.csv"), csv).unwrap();
+    let file = dir.path("d.csv");
+    let args =
+        ["track", file.to_str().unwrap(), "--prediction-column", "p", "--label-column", "y", "--loss", "zero-one"];
+    let mut a = args.to_vec();
+    a.push("--json");
+    let last = lines(&riskbound(&a)).pop().unwrap();
+    let b = &last["bounds"]["betting-cs"];
+    let mean = last["mean"].as_f64().unwrap();
+    assert!(mean > b["upper"].as_f64().unwrap(), "{last}");
+    assert!(b["note"].as_str().unwrap().contains("the mean left the sequence"), "{last}");
+    // An interval that still holds the mean carries no such note.
+    let first = lines(&riskbound(&a)).remove(0);
+    assert!(first["bounds"]["betting-cs"].get("note").is_none(), "{first}");
+    let table = String::from_utf8(riskbound(&args).stdout).unwrap();
+    assert!(table.lines().any(|l| l.contains("betting-cs") && l.contains("the mean left the sequence")), "{table}");
+}

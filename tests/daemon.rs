@@ -372,3 +372,43 @@ fn two_models_on_one_folder_each_take_every_file_once() {
     assert!(!log.contains("pred-a.csv"), "a taken file was looked at again after the restart:\n{log}");
     assert_eq!(log.matches("batch file taken").count(), 2, "pred-b, once per model:\n{log}");
 }
+
+/// SIGTERM waits for the file being read at most `shutdown_grace_period`, then the daemon
+/// exits anyway and says so; the file's transaction rolls back, and the next start takes the
+/// whole file once.
+#[test]
+fn shutdown_is_bounded_by_the_grace_period_and_loses_nothing() {
+    let dir = TempDir::new("grace");
+    let port = common::free_port();
+    let cfg = common::simple_config(&dir, port, "shutdown_grace_period: 200ms", "m", "", "[ { name: all, last: 10 } ]");
+    let d = Daemon::start(&cfg, port);
+    // Large enough that reading it takes seconds on this machine.
+    let rows = 3_000_000u64;
+    let mut body = String::with_capacity(40 * rows as usize);
+    body.push_str("id,t,p\n");
+    for i in 0..rows {
+        body += &format!("r{i},{},1\n", T + (i / 1000) as i64);
+    }
+    dir.drop_file("pred-big.csv", &body);
+    std::thread::sleep(std::time::Duration::from_millis(400));
+    let t = std::time::Instant::now();
+    let log = d.log.clone();
+    let status = d.terminate();
+    let took = t.elapsed().as_secs_f64();
+    let text = std::fs::read_to_string(&log).unwrap();
+    assert!(status.success(), "{text}");
+    if text.contains("stopped gracefully") {
+        panic!("the file was read within 400 ms; the test needs a larger file:\n{text}");
+    }
+    assert!(text.contains("stopped forcibly"), "{text}");
+    assert!(took < 3.0, "SIGTERM took {took} s with a 200 ms grace period");
+    // The next start takes the file, once.
+    let d = Daemon::start(&cfg, port);
+    d.wait_until(std::time::Duration::from_secs(120), |d| {
+        d.metrics().get("riskbound_files_ingested_total", &[("model", "m"), ("kind", "prediction")]) == Some(1.0)
+    });
+    assert_eq!(
+        d.metrics().get("riskbound_rows_ingested_total", &[("model", "m"), ("kind", "prediction")]),
+        Some(rows as f64)
+    );
+}

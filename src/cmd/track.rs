@@ -66,7 +66,11 @@ pub fn line(key: Option<&str>, t: &Tracker) -> Value {
     let mut bounds = Map::new();
     for s in Sequence::ALL {
         let b = t.bounds(s);
-        bounds.insert(s.name().to_string(), json!({"lower": b.lower, "upper": b.upper}));
+        let mut o = json!({"lower": b.lower, "upper": b.upper});
+        if left_sequence(b, t.mean()) {
+            o["note"] = json!(LEFT);
+        }
+        bounds.insert(s.name().to_string(), o);
     }
     let mut v = json!({"group": key, "n": t.n(), "mean": t.mean(), "bounds": Value::Object(bounds)});
     if t.labelled() < t.n() {
@@ -83,17 +87,34 @@ pub fn line(key: Option<&str>, t: &Tracker) -> Value {
 
 fn write_table_row<W: Write>(out: &mut W, key: Option<&str>, t: &Tracker) -> std::io::Result<()> {
     let mut cells = vec![format!("{:<12}", key.unwrap_or("-")), format!("{:>9}", t.n()), format!("{:>9.6}", t.mean())];
+    let mut crossed = Vec::new();
     for s in Sequence::ALL {
         let b = t.bounds(s);
         cells.push(format!("[{:.6}, {:.6}]", b.lower, b.upper));
+        if left_sequence(b, t.mean()) {
+            crossed.push(s.name());
+        }
     }
     if let (Some(e), Some(c)) = (t.exceeded(), t.change()) {
         let flag = |a: Option<u64>| a.map_or("no".to_string(), |n| format!("yes@{n}"));
         cells.push(format!("{:>10}", flag(e.alarm_at())));
         cells.push(format!("{:>10}", flag(c.alarm_at())));
     }
-    writeln!(out, "{}", cells.join("  "))
+    writeln!(out, "{}", cells.join("  "))?;
+    if !crossed.is_empty() {
+        writeln!(out, "{:<12} {}: {LEFT}", "", crossed.join(", "))?;
+    }
+    Ok(())
 }
+
+/// True when the running intersection no longer holds the mean: crossed (lower above
+/// upper), or pinned while the mean moved on.
+fn left_sequence(b: crate::estimate::Bounds, mean: f64) -> bool {
+    b.lower > b.upper || mean < b.lower || mean > b.upper
+}
+
+/// What that means, in the table and in the JSON (`note`).
+pub const LEFT: &str = "the mean left the sequence: the risk has not been constant since the start, so the sequence no longer describes it; bound windows of the file instead";
 
 /// Replays `src` and writes one line per checkpoint to `out`.
 pub fn run<R: Read, W: Write>(plan: &Plan, src: R, out: &mut W, as_json: bool) -> Result<(), TrackError> {
@@ -162,4 +183,17 @@ pub fn main(a: &super::cli::TrackArgs) -> anyhow::Result<()> {
     a.input.with_reader(|src| Ok(run(&plan, src, &mut out, a.json)?))?;
     out.flush()?;
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::estimate::Bounds;
+
+    #[test]
+    fn crossed_or_pinned_intervals_have_left_the_mean() {
+        assert!(left_sequence(Bounds { lower: 0.483, upper: 0.454 }, 0.47), "crossed");
+        assert!(left_sequence(Bounds { lower: 0.13, upper: 0.13 }, 0.3), "pinned");
+        assert!(!left_sequence(Bounds { lower: 0.1, upper: 0.2 }, 0.15));
+    }
 }

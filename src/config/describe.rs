@@ -6,13 +6,14 @@ impl Config {
     /// The resolved settings, as `check-config` prints them.
     pub fn describe(&self) -> String {
         let mut s = format!(
-            "config: {}\nlisten: {}\nstate_dir: {}\nrescan_interval: {:?}\nmax_row_bytes: {}\nfuture_tolerance: {}s\n",
+            "config: {}\nlisten: {}\nstate_dir: {}\nrescan_interval: {:?}\nmax_row_bytes: {}\nfuture_tolerance: {}s\nshutdown_grace_period: {:?}\n",
             self.file.display(),
             self.listen,
             self.state_dir.display(),
             self.rescan_interval,
             self.max_row_bytes,
-            self.models.first().map_or(86_400, |m| m.future_tolerance_ms / 1000)
+            self.models.first().map_or(86_400, |m| m.future_tolerance_ms / 1000),
+            self.shutdown_grace_period,
         );
         let h = &self.http;
         s += &format!(

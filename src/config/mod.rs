@@ -46,6 +46,9 @@ pub const SINCE_RESET: &str = "since-reset";
 /// The change detector's horizon when none is configured: 10^5 labels.
 pub const DEFAULT_CHANGE_HORIZON: u64 = 100_000;
 
+/// How long SIGTERM waits for the current file by default: well under Kubernetes' 30 s.
+pub const DEFAULT_SHUTDOWN_GRACE: Duration = Duration::from_secs(20);
+
 /// Default listen address: loopback, so nothing is exposed unless asked for.
 pub const DEFAULT_LISTEN: &str = "127.0.0.1:9417";
 
@@ -152,6 +155,22 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
             Duration::from_secs(30)
         }),
     };
+    // Below Kubernetes' default terminationGracePeriodSeconds (30 s), so that the daemon, not
+    // the kubelet's SIGKILL, decides how it stops.
+    let shutdown_grace_period = match &raw.shutdown_grace_period {
+        None => DEFAULT_SHUTDOWN_GRACE,
+        Some(g) => match parse_duration(&g.value) {
+            Ok(d) if d >= Duration::from_millis(100) && d <= Duration::from_secs(600) => d,
+            Ok(_) => {
+                c.push(g, "shutdown_grace_period", "must lie in [100ms, 10m]");
+                DEFAULT_SHUTDOWN_GRACE
+            }
+            Err(e) => {
+                c.push(g, "shutdown_grace_period", e);
+                DEFAULT_SHUTDOWN_GRACE
+            }
+        },
+    };
     let max_row_bytes = match &raw.max_row_bytes {
         None => 1 << 20,
         Some(m) if m.value >= 64 => m.value,
@@ -190,6 +209,7 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
         state_dir,
         rescan_interval,
         max_row_bytes,
+        shutdown_grace_period,
         http,
         memory_limit_bytes,
         models,

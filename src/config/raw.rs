@@ -9,6 +9,7 @@ pub(super) struct RawConfig {
     pub(super) state_dir: Option<Spanned<String>>,
     pub(super) rescan_interval: Option<Spanned<String>>,
     pub(super) max_row_bytes: Option<Spanned<u64>>,
+    pub(super) shutdown_grace_period: Option<Spanned<String>>,
     pub(super) future_tolerance: Option<Spanned<String>>,
     pub(super) max_connections: Option<Spanned<i64>>,
     pub(super) header_read_timeout: Option<Spanned<String>>,

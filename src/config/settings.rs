@@ -13,6 +13,9 @@ pub struct Config {
     pub rescan_interval: Duration,
     /// Longest accepted row; longer rows are rejected (bounds memory on hostile input).
     pub max_row_bytes: u64,
+    /// How long SIGTERM waits for the file being read to finish before the daemon exits
+    /// anyway (its transaction then rolls back; nothing is lost or counted twice).
+    pub shutdown_grace_period: Duration,
     /// What one HTTP client may hold.
     pub http: HttpLimits,
     /// The container's memory limit, for the memory ticket rule: `memory_limit` if set, else

@@ -105,8 +105,9 @@ pub fn analyze(t: &Table, plan: &Plan) -> Report {
     let (half_a, half_b) = perm.split_at(n / 2);
     let scan_a = Scanner::new(t, Some(half_a), plan.depth);
     let excess_a: Vec<f64> = half_a.iter().map(|&r| t.losses[r as usize] - plan.theta).collect();
-    let found: Vec<Slice> =
-        scan_a.candidates(&excess_a).into_iter().filter(|f| f.sum > 0.0).take(plan.top).map(|f| f.slice).collect();
+    let found = distinct_row_sets(scan_a.candidates(&excess_a), plan.top, |s| {
+        half_a.iter().copied().filter(|&r| contains(t, s, r as usize)).collect()
+    });
     let confirmed = found.len();
     let per_slice = split_delta / confirmed.max(1) as f64;
 
@@ -119,10 +120,14 @@ pub fn analyze(t: &Table, plan: &Plan) -> Report {
     let localized = localized(&scan, &excess, plan.delta, &mut rng);
 
     // Report what either route found: the split's discoveries and the full window's worst.
+    // Each set of rows once: a slice selecting the same rows as one already reported is the
+    // same slice under another description.
+    let members = |s: &Slice| -> Vec<u32> { (0..n as u32).filter(|&r| contains(t, s, r as usize)).collect() };
     let mut slices: Vec<(Slice, bool)> = found.into_iter().map(|s| (s, true)).collect();
-    for f in scan.candidates(&excess).into_iter().filter(|f| f.sum > 0.0).take(plan.top) {
-        if !slices.iter().any(|(s, _)| s == &f.slice) {
-            slices.push((f.slice, false));
+    let mut reported: std::collections::HashSet<Vec<u32>> = slices.iter().map(|(s, _)| members(s)).collect();
+    for s in distinct_row_sets(scan.candidates(&excess), plan.top, members) {
+        if reported.insert(members(&s)) {
+            slices.push((s, false));
         }
     }
     let mut reports: Vec<SliceReport> = slices
@@ -170,6 +175,34 @@ pub fn analyze(t: &Table, plan: &Plan) -> Report {
         uniform_delta,
         slices: reports,
     }
+}
+
+/// The first `top` candidates with positive excess whose row sets (as `rows` gives them) are
+/// distinct: a conjunction selecting exactly the rows of one of its parts takes no second slot,
+/// and does not count in split-confirm's K. Of slices with the same rows, the one with the
+/// fewest parts is kept (the shorter description of the same set).
+fn distinct_row_sets(candidates: Vec<Found>, top: usize, rows: impl Fn(&Slice) -> Vec<u32>) -> Vec<Slice> {
+    let parts = |s: &Slice| match s {
+        Slice::Conjunction { parts } => parts.len(),
+        _ => 1,
+    };
+    let mut seen: HashMap<Vec<u32>, usize> = HashMap::new();
+    let mut out: Vec<Slice> = Vec::new();
+    for f in candidates.into_iter().filter(|f| f.sum > 0.0) {
+        match seen.get(&rows(&f.slice)) {
+            Some(&i) => {
+                if parts(&f.slice) < parts(&out[i]) {
+                    out[i] = f.slice;
+                }
+            }
+            None if out.len() == top => break,
+            None => {
+                seen.insert(rows(&f.slice), out.len());
+                out.push(f.slice);
+            }
+        }
+    }
+    out
 }
 
 /// A registered slice's bounds on the whole window (scaled losses).

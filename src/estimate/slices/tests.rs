@@ -373,3 +373,43 @@ fn the_variance_sensitive_deviation_is_the_stated_formula() {
     let u1 = 2.0 * 0.004 + ((9.0 + 4.0 / k as f64) * (1.0 / delta).ln() / (2.0 * nf)).sqrt();
     assert!(got < u1, "{got} vs {u1}");
 }
+
+/// Regression: with depth 2, `region=ne & carrier=x` selects exactly the rows of `carrier=x`
+/// (x only delivers in ne). It took a second top-K slot and counted in split-confirm's K.
+#[test]
+fn each_row_set_is_reported_once() {
+    let mut rng = Seeded::new(11);
+    let n = 4000;
+    let (mut losses, mut region, mut carrier) = (Vec::new(), Vec::new(), Vec::new());
+    for i in 0..n {
+        let ne = i % 4 == 0;
+        let x = ne && i % 8 == 0;
+        region.push(if ne { "ne" } else { "sw" }.to_string());
+        carrier.push(if x { "x".to_string() } else { ["y", "z"][i % 2].to_string() });
+        losses.push(if rng.uniform() < if x { 0.6 } else { 0.05 } { 1.0 } else { 0.0 });
+    }
+    let t =
+        Table { losses, categorical: vec![("region".into(), region), ("carrier".into(), carrier)], numeric: vec![] };
+    let plan = Plan { theta: 0.1, delta: 0.05, top: 5, seed: 3, sign_draws: 20, depth: 2 };
+    let r = analyze(&t, &plan);
+    let rows = |s: &Slice| -> Vec<usize> { (0..n).filter(|&i| contains(&t, s, i)).collect() };
+    let sets: Vec<Vec<usize>> = r.slices.iter().map(|s| rows(&s.slice)).collect();
+    for i in 0..sets.len() {
+        for j in 0..i {
+            assert_ne!(
+                sets[i],
+                sets[j],
+                "{} and {} select the same rows",
+                r.slices[i].slice.describe(),
+                r.slices[j].slice.describe()
+            );
+        }
+    }
+    // The shorter description names the set.
+    assert!(
+        r.slices.iter().any(|s| s.slice.describe() == "carrier=x"),
+        "{:?}",
+        r.slices.iter().map(|s| s.slice.describe()).collect::<Vec<_>>()
+    );
+    assert!(!r.slices.iter().any(|s| s.slice.describe().contains("carrier=x") && s.slice.describe().contains('&')));
+}
