@@ -145,88 +145,90 @@ fn counters(
     family(enc, name, help, MetricType::Counter, series.into_iter().map(|(l, v)| (l, ConstCounter::new(v))))
 }
 
-impl Collector for SnapshotCollector {
-    fn encode(&self, mut enc: DescriptorEncoder) -> Result<(), std::fmt::Error> {
-        let snap = self.snapshot.read().map(|s| Arc::clone(&s)).unwrap_or_default();
-        let e = &mut enc;
-        let mw = |m: &str, w: &str| -> Labels { vec![("model", m.to_string()), ("window", w.to_string())] };
-        let per_method = |upper: bool| {
-            let mut v = Vec::new();
-            let pick = |b: &crate::estimate::Bounds| if upper { b.upper } else { b.lower };
-            for m in &snap.models {
-                for w in &m.windows {
-                    for (method, b) in &w.bounds {
-                        let mut l = mw(&m.name, &w.name);
-                        l.push(("method", method.name().to_string()));
-                        l.push(("guarantee", m.window_guarantee.as_str().to_string()));
-                        v.push((l, pick(b)));
-                    }
-                    for (method, b) in w.cohort.iter().flat_map(|c| &c.bounds) {
-                        let mut l = mw(&m.name, &w.name);
-                        l.push(("method", method.name().to_string()));
-                        l.push(("guarantee", delay_robust_guarantee(m.window_guarantee).to_string()));
-                        v.push((l, pick(b)));
-                    }
+/// The model label alone.
+fn model(m: &str) -> Labels {
+    vec![("model", m.to_string())]
+}
+
+/// The (model, window) labels most series carry.
+fn mw(m: &str, w: &str) -> Labels {
+    vec![("model", m.to_string()), ("window", w.to_string())]
+}
+
+/// The bounds per window, method and guarantee, and each window's sample and cohort counts.
+fn encode_bounds(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::fmt::Error> {
+    let per_method = |upper: bool| {
+        let mut v = Vec::new();
+        let pick = |b: &crate::estimate::Bounds| if upper { b.upper } else { b.lower };
+        for m in &snap.models {
+            for w in &m.windows {
+                for (method, b) in &w.bounds {
+                    let mut l = mw(&m.name, &w.name);
+                    l.push(("method", method.name().to_string()));
+                    l.push(("guarantee", m.window_guarantee.as_str().to_string()));
+                    v.push((l, pick(b)));
                 }
-                for (seq, b) in &m.anytime.bounds {
-                    let mut l = mw(&m.name, SINCE_RESET);
-                    l.push(("method", seq.name().to_string()));
-                    l.push(("guarantee", ANYTIME.to_string()));
+                for (method, b) in w.cohort.iter().flat_map(|c| &c.bounds) {
+                    let mut l = mw(&m.name, &w.name);
+                    l.push(("method", method.name().to_string()));
+                    l.push(("guarantee", delay_robust_guarantee(m.window_guarantee).to_string()));
                     v.push((l, pick(b)));
                 }
             }
-            v
-        };
-        gauges(e, names::UPPER, "Upper confidence bound on the true risk. guarantee=\"per-window\": on the window's labelled samples, each published value on its own holds with probability at least the bound confidence if which labels have come does not depend on the outcomes; \"spent\": all published values together do; \"delay-robust\" (\"delay-robust-spent\"): on the window's cohort of every prediction, a missing label counted at the loss maximum, true whatever the label delays depend on; \"anytime\" (window=\"since-reset\"): the bound holds at every prediction since the reset at once, predictions taken in prediction-time order once their label_wait is over, a missing label at the loss maximum, assuming a constant risk", per_method(true))?;
-        gauges(e, names::LOWER, "Lower confidence bound on the true risk; guarantee as for the upper bound (delay-robust and anytime: a missing label counted as loss 0). An anytime lower bound stays below the highest risk seen since the reset even when the risk drifts", per_method(false))?;
-        let per_window = |f: &dyn Fn(&crate::window::WindowSnapshot) -> f64,
-                          anytime: &dyn Fn(&crate::window::AnytimeSnapshot) -> f64| {
-            snap.models
-                .iter()
-                .flat_map(|m| {
-                    m.windows
-                        .iter()
-                        .map(move |w| (mw(&m.name, &w.name), f(w)))
-                        .chain(std::iter::once((mw(&m.name, SINCE_RESET), anytime(&m.anytime))))
-                })
-                .collect::<Vec<_>>()
-        };
-        gauges(
-            e,
-            names::OBSERVED,
-            "Mean loss of the window's labelled samples (a point estimate, not a bound)",
-            per_window(&|w| w.mean, &|a| a.mean),
-        )?;
-        gauges(
-            e,
-            names::SAMPLES,
-            "Labelled samples in the window",
-            per_window(&|w| w.n as f64, &|a| a.labelled as f64),
-        )?;
-        gauges(
-            e,
-            names::TOTAL_LOSS,
-            "Sum of the window's losses (for 0-1 loss, its error count): checks against counts kept elsewhere",
-            per_window(&|w| w.loss_sum, &|a| a.loss_sum),
-        )?;
-        let cohort_of = |f: &dyn Fn(&crate::window::CohortSnapshot) -> u64| {
-            snap.models
-                .iter()
-                .flat_map(|m| {
-                    m.windows
-                        .iter()
-                        .filter_map(move |w| w.cohort.as_ref().map(|c| (mw(&m.name, &w.name), f(c) as f64)))
-                        .chain(std::iter::once((mw(&m.name, SINCE_RESET), m.anytime.n as f64)))
-                })
-                .collect::<Vec<_>>()
-        };
-        gauges(
+            for (seq, b) in &m.anytime.bounds {
+                let mut l = mw(&m.name, SINCE_RESET);
+                l.push(("method", seq.name().to_string()));
+                l.push(("guarantee", ANYTIME.to_string()));
+                v.push((l, pick(b)));
+            }
+        }
+        v
+    };
+    gauges(e, names::UPPER, "Upper confidence bound on the true risk. guarantee=\"per-window\": on the window's labelled samples, each published value on its own holds with probability at least the bound confidence if which labels have come does not depend on the outcomes; \"spent\": all published values together do; \"delay-robust\" (\"delay-robust-spent\"): on the window's cohort of every prediction, a missing label counted at the loss maximum, true whatever the label delays depend on; \"anytime\" (window=\"since-reset\"): the bound holds at every prediction since the reset at once, predictions taken in prediction-time order once their label_wait is over, a missing label at the loss maximum, assuming a constant risk", per_method(true))?;
+    gauges(e, names::LOWER, "Lower confidence bound on the true risk; guarantee as for the upper bound (delay-robust and anytime: a missing label counted as loss 0). An anytime lower bound stays below the highest risk seen since the reset even when the risk drifts", per_method(false))?;
+    let per_window = |f: &dyn Fn(&crate::window::WindowSnapshot) -> f64,
+                      anytime: &dyn Fn(&crate::window::AnytimeSnapshot) -> f64| {
+        snap.models
+            .iter()
+            .flat_map(|m| {
+                m.windows
+                    .iter()
+                    .map(move |w| (mw(&m.name, &w.name), f(w)))
+                    .chain(std::iter::once((mw(&m.name, SINCE_RESET), anytime(&m.anytime))))
+            })
+            .collect::<Vec<_>>()
+    };
+    gauges(
+        e,
+        names::OBSERVED,
+        "Mean loss of the window's labelled samples (a point estimate, not a bound)",
+        per_window(&|w| w.mean, &|a| a.mean),
+    )?;
+    gauges(e, names::SAMPLES, "Labelled samples in the window", per_window(&|w| w.n as f64, &|a| a.labelled as f64))?;
+    gauges(
+        e,
+        names::TOTAL_LOSS,
+        "Sum of the window's losses (for 0-1 loss, its error count): checks against counts kept elsewhere",
+        per_window(&|w| w.loss_sum, &|a| a.loss_sum),
+    )?;
+    let cohort_of = |f: &dyn Fn(&crate::window::CohortSnapshot) -> u64| {
+        snap.models
+            .iter()
+            .flat_map(|m| {
+                m.windows
+                    .iter()
+                    .filter_map(move |w| w.cohort.as_ref().map(|c| (mw(&m.name, &w.name), f(c) as f64)))
+                    .chain(std::iter::once((mw(&m.name, SINCE_RESET), m.anytime.n as f64)))
+            })
+            .collect::<Vec<_>>()
+    };
+    gauges(
             e,
             names::COHORT,
             "Predictions in the window's cohort: every prediction of its prediction-time range, labelled or not (since-reset: predictions whose label_wait is over)",
             cohort_of(&|c| c.predictions),
         )?;
-        gauges(
+    gauges(
             e,
             names::COHORT_UNLABELLED,
             "Predictions of the window's cohort without a label (still waiting, or expired): the delay-robust bounds count each at 0 (lower) and at the loss maximum (upper)",
@@ -237,38 +239,47 @@ impl Collector for SnapshotCollector {
                     .chain(std::iter::once((mw(&m.name, SINCE_RESET), (m.anytime.n - m.anytime.labelled) as f64)))
             }),
         )?;
-        let mut dd: [Vec<(Labels, f64)>; 5] = Default::default();
-        for m in &snap.models {
-            let d = &m.delay_dependence;
-            for g in &d.groups {
-                let mo = vec![("model", m.name.clone()), ("outcome", g.outcome.to_string())];
-                dd[1].push((mo.clone(), g.n as f64));
-                if let Some(v) = g.median_s {
-                    dd[0].push((mo.clone(), v));
-                }
-                if let Some(v) = g.p90_s {
-                    dd[4].push((mo.clone(), v));
-                }
+    Ok(())
+}
+
+/// The label delays by outcome and the test of their dependence on it.
+fn encode_delays(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::fmt::Error> {
+    let (mut median, mut samples, mut p_value, mut dependent, mut p90) =
+        (Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new());
+    for m in &snap.models {
+        let d = &m.delay_dependence;
+        for g in &d.groups {
+            let mo = vec![("model", m.name.clone()), ("outcome", g.outcome.to_string())];
+            samples.push((mo.clone(), g.n as f64));
+            if let Some(v) = g.median_s {
+                median.push((mo.clone(), v));
             }
-            if let Some(p) = d.p_value {
-                dd[2].push((vec![("model", m.name.clone())], p));
+            if let Some(v) = g.p90_s {
+                p90.push((mo.clone(), v));
             }
-            dd[3].push((vec![("model", m.name.clone())], f64::from(u8::from(d.dependent))));
         }
-        let [dq, dn, dp, ddep, d90] = dd;
-        gauges(e, names::DELAY_MEDIAN_BY_OUTCOME, "Median label delay of the newest labelled samples by outcome (0-1 loss: error, correct; other losses: above_median, at_or_below_median)", dq)?;
-        gauges(
-            e,
-            names::DELAY_P90_BY_OUTCOME,
-            "90th percentile of the label delay of the newest labelled samples by outcome",
-            d90,
-        )?;
-        gauges(e, names::DELAY_OUTCOME_SAMPLES, "Labelled samples behind each outcome's delay quantiles", dn)?;
-        gauges(e, names::DELAY_OUTCOME_P, "p-value of the two-sample Kolmogorov-Smirnov test that label delays do not depend on the outcome (a per-look test; absent while an outcome has no labelled sample)", dp)?;
-        gauges(e, names::DELAY_OUTCOME_DEPENDENT, "1 when the delay test rejects at level 1 - confidence: label delays depend on outcomes, so the labelled-only bounds (guarantee per-window or spent) may be far too optimistic; the delay-robust bounds and anytime alarms still hold", ddep)?;
-        let model = |m: &str| -> Labels { vec![("model", m.to_string())] };
-        let mg = |m: &str, g: &str| -> Labels { vec![("model", m.to_string()), ("guarantee", g.to_string())] };
-        gauges(
+        if let Some(p) = d.p_value {
+            p_value.push((vec![("model", m.name.clone())], p));
+        }
+        dependent.push((vec![("model", m.name.clone())], f64::from(u8::from(d.dependent))));
+    }
+    gauges(e, names::DELAY_MEDIAN_BY_OUTCOME, "Median label delay of the newest labelled samples by outcome (0-1 loss: error, correct; other losses: above_median, at_or_below_median)", median)?;
+    gauges(
+        e,
+        names::DELAY_P90_BY_OUTCOME,
+        "90th percentile of the label delay of the newest labelled samples by outcome",
+        p90,
+    )?;
+    gauges(e, names::DELAY_OUTCOME_SAMPLES, "Labelled samples behind each outcome's delay quantiles", samples)?;
+    gauges(e, names::DELAY_OUTCOME_P, "p-value of the two-sample Kolmogorov-Smirnov test that label delays do not depend on the outcome (a per-look test; absent while an outcome has no labelled sample)", p_value)?;
+    gauges(e, names::DELAY_OUTCOME_DEPENDENT, "1 when the delay test rejects at level 1 - confidence: label delays depend on outcomes, so the labelled-only bounds (guarantee per-window or spent) may be far too optimistic; the delay-robust bounds and anytime alarms still hold", dependent)?;
+    Ok(())
+}
+
+/// Confidences, the anytime alarms and their reset point.
+fn encode_alarms(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::fmt::Error> {
+    let mg = |m: &str, g: &str| -> Labels { vec![("model", m.to_string()), ("guarantee", g.to_string())] };
+    gauges(
             e,
             names::CONFIDENCE,
             "Confidence of each one-sided bound of the model, by guarantee (with δ spending, the level of the latest evaluation)",
@@ -276,179 +287,198 @@ impl Collector for SnapshotCollector {
                 [(mg(&m.name, m.window_guarantee.as_str()), m.window_confidence), (mg(&m.name, ANYTIME), m.confidence)]
             }),
         )?;
-        let mut alarm_series: [Vec<(Labels, f64)>; 4] = Default::default();
-        for m in &snap.models {
-            for a in &m.anytime.alarms {
-                let l = vec![("model", m.name.clone()), ("test", a.test.as_str().to_string())];
-                alarm_series[0].push((l.clone(), a.log_evidence));
-                alarm_series[1].push((l.clone(), a.log_threshold));
-                alarm_series[2].push((l.clone(), f64::from(u8::from(a.fired_at.is_some()))));
-                alarm_series[3].push((l, a.max_risk));
+    let (mut evidence, mut threshold, mut firing, mut max_risk) = (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+    for m in &snap.models {
+        for a in &m.anytime.alarms {
+            let l = vec![("model", m.name.clone()), ("test", a.test.as_str().to_string())];
+            evidence.push((l.clone(), a.log_evidence));
+            threshold.push((l.clone(), a.log_threshold));
+            firing.push((l.clone(), f64::from(u8::from(a.fired_at.is_some()))));
+            max_risk.push((l, a.max_risk));
+        }
+    }
+    gauges(e, names::ALARM_EVIDENCE, "Natural log of the alarm's evidence since the reset: the e-value of \"risk <= max_risk at all times\" (test=exceeded, shift) or the change detector's statistic (test=change)", evidence)?;
+    gauges(e, names::ALARM_THRESHOLD, "The log evidence at which the alarm fires: ln(1/δ) (exceeded, shift: P(ever a false alarm) <= δ) or ln A (change: P(a false alarm in the first change_horizon labels) <= δ)", threshold)?;
+    gauges(e, names::ALARM_FIRING, "1 once the alarm's evidence reached its threshold since the reset (it stays 1 until riskbound reset), else 0. Trust it only while label coverage is at or above the SLA's min_label_coverage", firing)?;
+    gauges(e, names::ALARM_MAX_RISK, "The risk level the alarm tests: the SLA max_risk (exceeded, change) or the reference's upper bound plus tolerance (shift)", max_risk)?;
+    gauges(
+        e,
+        names::RESET_TIME,
+        "Unix time of the anytime sequences' reset point (the first sample, or the last riskbound reset)",
+        snap.models.iter().filter_map(|m| m.anytime.reset_ms.map(|t| (model(&m.name), t as f64 / 1000.0))),
+    )?;
+    Ok(())
+}
+
+/// The certified slices of each window, found and registered.
+fn encode_slices(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::fmt::Error> {
+    let (mut s_lower, mut s_upper, mut s_info, mut s_viol, mut s_dev, mut r_lower, mut r_upper) =
+        (Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new());
+    for m in &snap.models {
+        for w in &m.windows {
+            let Some(sn) = &w.slices else { continue };
+            for (rank, line) in sn.top.iter().enumerate() {
+                let mut l = mw(&m.name, &w.name);
+                l.push(("rank", (rank + 1).to_string()));
+                s_lower.push((l.clone(), line.lower));
+                s_upper.push((l.clone(), line.upper));
+                l.push(("slice", line.description.clone()));
+                l.push(("kind", line.kind.to_string()));
+                l.push(("certified_by", line.certified_by.to_string()));
+                s_info.push((l, 1.0));
+            }
+            s_viol.push((mw(&m.name, &w.name), sn.violations as f64));
+            s_dev.push((mw(&m.name, &w.name), sn.uniform_deviation));
+            for line in &sn.registered {
+                let mut l = mw(&m.name, &w.name);
+                l.push(("slice", line.description.clone()));
+                r_lower.push((l.clone(), line.lower));
+                r_upper.push((l, line.upper));
             }
         }
-        let [evidence, threshold, firing, max_risk] = alarm_series;
-        gauges(e, names::ALARM_EVIDENCE, "Natural log of the alarm's evidence since the reset: the e-value of \"risk <= max_risk at all times\" (test=exceeded, shift) or the change detector's statistic (test=change)", evidence)?;
-        gauges(e, names::ALARM_THRESHOLD, "The log evidence at which the alarm fires: ln(1/δ) (exceeded, shift: P(ever a false alarm) <= δ) or ln A (change: P(a false alarm in the first change_horizon labels) <= δ)", threshold)?;
-        gauges(e, names::ALARM_FIRING, "1 once the alarm's evidence reached its threshold since the reset (it stays 1 until riskbound reset), else 0. Trust it only while label coverage is at or above the SLA's min_label_coverage", firing)?;
-        gauges(e, names::ALARM_MAX_RISK, "The risk level the alarm tests: the SLA max_risk (exceeded, change) or the reference's upper bound plus tolerance (shift)", max_risk)?;
-        gauges(
-            e,
-            names::RESET_TIME,
-            "Unix time of the anytime sequences' reset point (the first sample, or the last riskbound reset)",
-            snap.models.iter().filter_map(|m| m.anytime.reset_ms.map(|t| (model(&m.name), t as f64 / 1000.0))),
-        )?;
-        let mut sl: [Vec<(Labels, f64)>; 7] = Default::default();
-        for m in &snap.models {
-            for w in &m.windows {
-                let Some(sn) = &w.slices else { continue };
-                for (rank, line) in sn.top.iter().enumerate() {
+    }
+    gauges(e, names::SLICE_LOWER, "Certified lower bound on the true risk of the window's rank-th worst slice (riskbound_slice_info names it); valid for how the slice was found (split-confirm or uniform over the whole slice class)", s_lower)?;
+    gauges(e, names::SLICE_UPPER, "Certified upper bound on the true risk of the window's rank-th worst slice (1 = uninformative, for the uniform certificate)", s_upper)?;
+    gauges(e, names::SLICE_INFO, "1 for each exported slice: its description, kind and certificate", s_info)?;
+    gauges(
+        e,
+        names::SLICE_VIOLATIONS,
+        "Slices of the window (found or registered) whose certified lower bound is above the SLA's max_risk",
+        s_viol,
+    )?;
+    gauges(e, names::SLICE_DEVIATION, "ε of the uniform (Rademacher) certificate over the window's slice class: every slice's excess P((l - max_risk) 1_S) is at least its window value minus this", s_dev)?;
+    gauges(
+        e,
+        names::REGISTERED_LOWER,
+        "Lower bound on the true risk of a slice registered in the config (fixed in advance: bound at δ/M each)",
+        r_lower,
+    )?;
+    gauges(e, names::REGISTERED_UPPER, "Upper bound on the true risk of a registered slice (δ/M each)", r_upper)?;
+    counters(
+        e,
+        names::RESETS,
+        "Restarts of the anytime sequences and alarms (riskbound reset, or changed settings)",
+        snap.models.iter().map(|m| (model(&m.name), m.anytime.resets)),
+    )?;
+    gauges(
+        e,
+        names::SLA_MAX,
+        "The model's SLA: the largest acceptable true risk",
+        snap.models.iter().filter_map(|m| m.sla.as_ref().map(|s| (model(&m.name), s.max_risk))),
+    )?;
+    Ok(())
+}
+
+/// SLA states and the ingest counters: rows, rejects, files, joins, expiry, coverage, delays.
+fn encode_ingest(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::fmt::Error> {
+    let mut states = Vec::new();
+    for m in &snap.models {
+        for w in &m.windows {
+            if let Some((state, _)) = w.state {
+                for s in SlaState::ALL {
                     let mut l = mw(&m.name, &w.name);
-                    l.push(("rank", (rank + 1).to_string()));
-                    sl[0].push((l.clone(), line.lower));
-                    sl[1].push((l.clone(), line.upper));
-                    l.push(("slice", line.description.clone()));
-                    l.push(("kind", line.kind.to_string()));
-                    l.push(("certified_by", line.certified_by.to_string()));
-                    sl[2].push((l, 1.0));
-                }
-                sl[3].push((mw(&m.name, &w.name), sn.violations as f64));
-                sl[4].push((mw(&m.name, &w.name), sn.uniform_deviation));
-                for line in &sn.registered {
-                    let mut l = mw(&m.name, &w.name);
-                    l.push(("slice", line.description.clone()));
-                    sl[5].push((l.clone(), line.lower));
-                    sl[6].push((l, line.upper));
+                    l.push(("state", s.as_str().to_string()));
+                    states.push((l, f64::from(u8::from(s == state))));
                 }
             }
         }
-        let [s_lower, s_upper, s_info, s_viol, s_dev, r_lower, r_upper] = sl;
-        gauges(e, names::SLICE_LOWER, "Certified lower bound on the true risk of the window's rank-th worst slice (riskbound_slice_info names it); valid for how the slice was found (split-confirm or uniform over the whole slice class)", s_lower)?;
-        gauges(e, names::SLICE_UPPER, "Certified upper bound on the true risk of the window's rank-th worst slice (1 = uninformative, for the uniform certificate)", s_upper)?;
-        gauges(e, names::SLICE_INFO, "1 for each exported slice: its description, kind and certificate", s_info)?;
-        gauges(
-            e,
-            names::SLICE_VIOLATIONS,
-            "Slices of the window (found or registered) whose certified lower bound is above the SLA's max_risk",
-            s_viol,
+    }
+    gauges(e, names::SLA_STATE, "1 for the window's current SLA state (ok: upper bound at or below max risk; violated: lower bound above it; inconclusive: neither, too few samples, or too few labels), 0 for the others", states)?;
+    let kinds = [Kind::Prediction, Kind::Label];
+    let mk = |m: &str, k: Kind| -> Labels { vec![("model", m.to_string()), ("kind", k.as_str().to_string())] };
+    counters(
+        e,
+        names::ROWS,
+        "Rows taken from batch files",
+        snap.models.iter().flat_map(|m| kinds.map(|k| (mk(&m.name, k), m.counters.rows.get(&k).copied().unwrap_or(0)))),
+    )?;
+    let mut rejected = Vec::new();
+    for m in &snap.models {
+        for k in kinds {
+            for r in RejectReason::ALL.into_iter().filter(|r| r.possible_for(k == Kind::Label)) {
+                let mut l = mk(&m.name, k);
+                l.push(("reason", r.as_str().to_string()));
+                rejected.push((l, m.counters.rejected.get(&(k, r)).copied().unwrap_or(0)));
+            }
+        }
+    }
+    counters(e, names::REJECTED, "Rows rejected, by reason; the rest of each file is kept", rejected)?;
+    counters(
+        e,
+        names::FILES,
+        "Batch files taken (each content once, whatever its name)",
+        snap.models
+            .iter()
+            .flat_map(|m| kinds.map(|k| (mk(&m.name, k), m.counters.files.get(&k).copied().unwrap_or(0)))),
+    )?;
+    gauges(
+        e,
+        names::AWAITING,
+        "Predictions waiting for their label",
+        snap.models.iter().map(|m| (model(&m.name), m.awaiting as f64)),
+    )?;
+    counters(
+        e,
+        names::EXPIRED,
+        "Predictions dropped because no label came within label_wait",
+        snap.models.iter().map(|m| (model(&m.name), m.counters.expired)),
+    )?;
+    counters(
+        e,
+        names::ORPHANED,
+        "Labels dropped because no prediction came within label_wait",
+        snap.models.iter().map(|m| (model(&m.name), m.counters.orphaned)),
+    )?;
+    counters(
+        e,
+        names::LABELLED,
+        "Predictions joined with their label",
+        snap.models.iter().map(|m| (model(&m.name), m.counters.joined)),
+    )?;
+    gauges(
+        e,
+        names::COVERAGE,
+        "Fraction of predictions whose wait is over that got a label (labelled / (labelled + expired))",
+        snap.models.iter().filter_map(|m| m.label_coverage.map(|c| (model(&m.name), c))),
+    )?;
+    {
+        let mut h = e.encode_descriptor(
+            names::DELAY,
+            "Time from prediction to label, by event time",
+            None,
+            MetricType::Histogram,
         )?;
-        gauges(e, names::SLICE_DEVIATION, "ε of the uniform (Rademacher) certificate over the window's slice class: every slice's excess P((l - max_risk) 1_S) is at least its window value minus this", s_dev)?;
-        gauges(
-            e,
-            names::REGISTERED_LOWER,
-            "Lower bound on the true risk of a slice registered in the config (fixed in advance: bound at δ/M each)",
-            r_lower,
-        )?;
-        gauges(e, names::REGISTERED_UPPER, "Upper bound on the true risk of a registered slice (δ/M each)", r_upper)?;
-        counters(
-            e,
-            names::RESETS,
-            "Restarts of the anytime sequences and alarms (riskbound reset, or changed settings)",
-            snap.models.iter().map(|m| (model(&m.name), m.anytime.resets)),
-        )?;
-        gauges(
-            e,
-            names::SLA_MAX,
-            "The model's SLA: the largest acceptable true risk",
-            snap.models.iter().filter_map(|m| m.sla.as_ref().map(|s| (model(&m.name), s.max_risk))),
-        )?;
-        let mut states = Vec::new();
         for m in &snap.models {
-            for w in &m.windows {
-                if let Some((state, _)) = w.state {
-                    for s in SlaState::ALL {
-                        let mut l = mw(&m.name, &w.name);
-                        l.push(("state", s.as_str().to_string()));
-                        states.push((l, f64::from(u8::from(s == state))));
-                    }
-                }
-            }
-        }
-        gauges(e, names::SLA_STATE, "1 for the window's current SLA state (ok: upper bound at or below max risk; violated: lower bound above it; inconclusive: neither, too few samples, or too few labels), 0 for the others", states)?;
-        let kinds = [Kind::Prediction, Kind::Label];
-        let mk = |m: &str, k: Kind| -> Labels { vec![("model", m.to_string()), ("kind", k.as_str().to_string())] };
-        counters(
-            e,
-            names::ROWS,
-            "Rows taken from batch files",
-            snap.models
-                .iter()
-                .flat_map(|m| kinds.map(|k| (mk(&m.name, k), m.counters.rows.get(&k).copied().unwrap_or(0)))),
-        )?;
-        let mut rejected = Vec::new();
-        for m in &snap.models {
-            for k in kinds {
-                for r in RejectReason::ALL.into_iter().filter(|r| r.possible_for(k == Kind::Label)) {
-                    let mut l = mk(&m.name, k);
-                    l.push(("reason", r.as_str().to_string()));
-                    rejected.push((l, m.counters.rejected.get(&(k, r)).copied().unwrap_or(0)));
-                }
-            }
-        }
-        counters(e, names::REJECTED, "Rows rejected, by reason; the rest of each file is kept", rejected)?;
-        counters(
-            e,
-            names::FILES,
-            "Batch files taken (each content once, whatever its name)",
-            snap.models
-                .iter()
-                .flat_map(|m| kinds.map(|k| (mk(&m.name, k), m.counters.files.get(&k).copied().unwrap_or(0)))),
-        )?;
-        gauges(
-            e,
-            names::AWAITING,
-            "Predictions waiting for their label",
-            snap.models.iter().map(|m| (model(&m.name), m.awaiting as f64)),
-        )?;
-        counters(
-            e,
-            names::EXPIRED,
-            "Predictions dropped because no label came within label_wait",
-            snap.models.iter().map(|m| (model(&m.name), m.counters.expired)),
-        )?;
-        counters(
-            e,
-            names::ORPHANED,
-            "Labels dropped because no prediction came within label_wait",
-            snap.models.iter().map(|m| (model(&m.name), m.counters.orphaned)),
-        )?;
-        counters(
-            e,
-            names::LABELLED,
-            "Predictions joined with their label",
-            snap.models.iter().map(|m| (model(&m.name), m.counters.joined)),
-        )?;
-        gauges(
-            e,
-            names::COVERAGE,
-            "Fraction of predictions whose wait is over that got a label (labelled / (labelled + expired))",
-            snap.models.iter().filter_map(|m| m.label_coverage.map(|c| (model(&m.name), c))),
-        )?;
-        {
-            let mut h = e.encode_descriptor(
-                names::DELAY,
-                "Time from prediction to label, by event time",
+            let mut buckets: Vec<(f64, u64)> =
+                DELAY_BUCKETS.iter().copied().zip(m.counters.delay_buckets.iter().copied()).collect();
+            buckets.push((f64::INFINITY, m.counters.delay_buckets.last().copied().unwrap_or(0)));
+            let labels = model(&m.name);
+            h.encode_family(&labels)?.encode_histogram::<Labels>(
+                m.counters.delay_sum_seconds,
+                m.counters.delay_count,
+                &buckets,
                 None,
-                MetricType::Histogram,
             )?;
-            for m in &snap.models {
-                let mut buckets: Vec<(f64, u64)> =
-                    DELAY_BUCKETS.iter().copied().zip(m.counters.delay_buckets.iter().copied()).collect();
-                buckets.push((f64::INFINITY, m.counters.delay_buckets.last().copied().unwrap_or(0)));
-                let labels = model(&m.name);
-                h.encode_family(&labels)?.encode_histogram::<Labels>(
-                    m.counters.delay_sum_seconds,
-                    m.counters.delay_count,
-                    &buckets,
-                    None,
-                )?;
-            }
         }
-        gauges(
-            e,
-            names::LAST_INGEST,
-            "Unix time of the model's last committed batch file",
-            snap.models.iter().filter_map(|m| m.last_commit_ms.map(|t| (model(&m.name), t as f64 / 1000.0))),
-        )?;
+    }
+    gauges(
+        e,
+        names::LAST_INGEST,
+        "Unix time of the model's last committed batch file",
+        snap.models.iter().filter_map(|m| m.last_commit_ms.map(|t| (model(&m.name), t as f64 / 1000.0))),
+    )?;
+    Ok(())
+}
+
+impl Collector for SnapshotCollector {
+    fn encode(&self, mut enc: DescriptorEncoder) -> Result<(), std::fmt::Error> {
+        let snap = self.snapshot.read().map(|s| Arc::clone(&s)).unwrap_or_default();
+        let e = &mut enc;
+        encode_bounds(&snap, e)?;
+        encode_delays(&snap, e)?;
+        encode_alarms(&snap, e)?;
+        encode_slices(&snap, e)?;
+        encode_ingest(&snap, e)?;
         gauges(
             e,
             names::BUILD_INFO,
