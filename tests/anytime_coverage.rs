@@ -90,7 +90,7 @@ fn sla_test_false_alarms_stay_within_delta() {
 
 /// The change detector with A = m/δ: P(a false alarm in the first m labels) ≤ δ at the
 /// boundary null; and after a real rise (0.10 → 0.20 at label 3000, θ = 0.15, the step of
-/// METHODS.md §2.8) it alarms in nearly every stream.
+/// docs/methods.md §2.8) it alarms in nearly every stream.
 #[test]
 fn change_detector_keeps_its_budget_and_catches_a_rise() {
     let reps = 1000;

@@ -99,7 +99,7 @@ fn no_slice_is_certified_under_the_boundary_null() {
 
 #[test]
 fn a_planted_bad_interval_is_found_and_certified() {
-    // The scenario of METHODS.md §3.7: risk 0.30 on 0.30 < x ≤ 0.40, 0.08 elsewhere, θ = 0.15.
+    // The scenario of docs/methods.md §3.7: risk 0.30 on 0.30 < x ≤ 0.40, 0.08 elsewhere, θ = 0.15.
     let theta = 0.15;
     let mut rng = Seeded::new(79);
     let mut found = 0;

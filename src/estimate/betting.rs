@@ -10,7 +10,7 @@
 //! Bets are the predictable plug-in ones for a fixed n, λ_t = sqrt(2 ln(1/δ) / (n σ̂²_{t−1})),
 //! capped at 1 (the cap of the `confseq` package's fixed-n interval, so factors stay ≥ 0), with
 //! σ̂²_t = (1/4 + Σ_{i≤t} (x_i − μ̂_i)²)/(t + 1) and μ̂_t = (1/2 + Σ_{i≤t} x_i)/(t + 1).
-//! Because the bets do not depend on m, K⁻_t(m) is nondecreasing in m (METHODS.md §1.6,
+//! Because the bets do not depend on m, K⁻_t(m) is nondecreasing in m (docs/methods.md §1.6,
 //! monotonicity lemma), so the accepted set is an interval and bisection finds its end with no
 //! grid error. The result depends on the order of the losses: callers pass them in an order that
 //! does not depend on their values (arrival order).

@@ -16,8 +16,9 @@ Sources, per section of the JSON:
   kl               an independent bisection on kl(mean || q) written below (200 halvings).
   betting          a numpy transcription of the fixed-n hedged-capital interval of
                    Waudby-Smith & Ramdas (2023) with plug-in bets capped at 1, solved by plain
-                   bisection on [0, 1] (the code a user would write), plus the confseq 0.0.11
-                   `betting_ci` grid values recorded in shared/checkvalues (grid 1/2000).
+                   bisection on [0, 1] (the code a user would write), plus confseq 0.0.11
+                   `betting_ci` grid values (grid 1/2000) recorded from one run by hand with the
+                   install recipe in tests/reference/README.md.
 Run: python3 tests/reference/make_bounds_fixture.py
 """
 import json
@@ -166,9 +167,9 @@ out = {
     "rule_of_three": rule_of_three,
     "datasets": datasets,
     "confseq_betting_ci": {
-        "source": "confseq 0.0.11 betting_ci(alpha=2*delta, breaks=2000) on the shared METHODS data sets A and B "
-                  "(shared/checkvalues/fixed_predictor_bounds.json, confseq_cross_checks); grid values, "
-                  "so an exact bisection lies within 2/2000 of them",
+        "source": "confseq 0.0.11 betting_ci(alpha=2*delta, breaks=2000) on data sets A and B of "
+                  "shared_datasets.json, recorded from one run by hand (recipe in tests/reference/README.md); "
+                  "grid values, so an exact bisection lies within 2/2000 of them",
         "grid": 0.0005,
         "cases": [{"data": "A", "losses": SHARED_A, "confidence": 0.95, "lower": 0.0885, "upper": 0.165},
                   {"data": "B", "losses": SHARED_B, "confidence": 0.95, "lower": 0.1295, "upper": 0.159}],

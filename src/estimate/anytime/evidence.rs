@@ -13,7 +13,7 @@ pub const RECENT_WEIGHT: f64 = 0.01;
 pub const BET_AFTER: u64 = 20;
 
 /// "The risk exceeded θ since the reset": the betting e-process for H0 "every conditional risk
-/// is ≤ θ" (METHODS.md §2.6). K_t = Π (1 + λ_i (x_i − θ)); under H0 each factor has conditional
+/// is ≤ θ" (docs/methods.md §2.6). K_t = Π (1 + λ_i (x_i − θ)); under H0 each factor has conditional
 /// mean ≤ 1 for any predictable λ_i ∈ [0, c/θ], so K is a nonnegative supermartingale and, by
 /// Ville's inequality, P(K ever reaches 1/α) ≤ α, with no stationarity assumption.
 ///
@@ -93,7 +93,7 @@ pub const CHANGE_BET_FRACTIONS: [f64; 5] = [0.5, 0.25, 0.125, 0.0625, 0.03125];
 const MIN_THETA_FOR_BETS: f64 = 0.01;
 
 /// "The risk rose above θ at some point": a Shiryaev–Roberts e-detector averaged over fixed
-/// bets (METHODS.md §2.8, item 5; Shin, Ramdas & Rinaldo, "E-detectors"). For each bet λ_j,
+/// bets (docs/methods.md §2.8; Shin, Ramdas & Rinaldo, "E-detectors"). For each bet λ_j,
 /// R_t = e_t (R_{t−1} + 1) with e_t = 1 + λ_j (x_t − θ), a sum over every possible change point
 /// of the capital since it; the statistic is the average over bets. Under H0 (every conditional
 /// risk ≤ θ) the average minus t is a supermartingale, so with threshold A: the mean run length

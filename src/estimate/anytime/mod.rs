@@ -23,7 +23,7 @@ use std::fmt;
 use serde::{Deserialize, Serialize};
 
 /// The truncation c of the betting sequences' bets: each factor stays ≥ 1 − c > 0, so capital
-/// never hits 0 (METHODS.md §1.6(c); the value `confseq` uses).
+/// never hits 0 (docs/methods.md §1.6(c); the value `confseq` uses).
 pub const TRUNCATION: f64 = 0.5;
 
 /// The anytime-valid sequences. The names are the command-line, JSON and metric spellings.

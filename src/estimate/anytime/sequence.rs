@@ -13,7 +13,7 @@ use crate::estimate::Bounds;
 /// it also keeps products away from subnormal numbers.
 const DEAD: f64 = 1e-250;
 
-/// One side of the betting sequence on a grid (METHODS.md §1.6, algorithm BET-GRID): the
+/// One side of the betting sequence on a grid (docs/methods.md §1.6, algorithm BET-GRID): the
 /// capital K⁻_t(m_j) = Π (1 − min(λ_i, c/(1 − m_j)) (x_i − m_j)) of every grid point
 /// m_j = j/G still accepted. K⁻ is nondecreasing in m (the monotonicity lemma), so the rejected
 /// points form an up-set: the first rejected point ends the accepted range for good (the running
@@ -95,7 +95,7 @@ impl BettingCs {
     }
 }
 
-/// The predictable plug-in empirical-Bernstein sequence (METHODS.md §1.6(e)):
+/// The predictable plug-in empirical-Bernstein sequence (docs/methods.md §1.6(e)):
 /// U_t = [Σ λ_i x_i + ln(1/α) + Σ v_i ψ_E(λ_i)] / Σ λ_i with λ_i the sequence bets capped at c,
 /// v_i = 4 (x_i − x̄_{i−1})², ψ_E(λ) = (−ln(1 − λ) − λ)/4; L_t mirrors it. The centre x̄_{i−1} is
 /// the plain running mean, as in `confseq`; before the first loss it is 0 for the lower side
@@ -204,7 +204,7 @@ impl HoeffdingCs {
         match boundary {
             HoeffdingBoundary::Stitched => Stitching::sub_gaussian(HOEFFDING_TIGHT_FROM / 4.0).bound(v, alpha),
             HoeffdingBoundary::NormalMixture => {
-                // ρ from the two-sided rule at 2α, as for the one-sided mixture in METHODS.md §2.4(b).
+                // ρ from the two-sided rule at 2α, as for the one-sided mixture in docs/methods.md §2.4(b).
                 let rho = boundary::normal_mixture_rho(HOEFFDING_MIXTURE_AT / 4.0, 2.0 * alpha);
                 boundary::normal_mixture_one_sided(v, alpha, rho)
             }

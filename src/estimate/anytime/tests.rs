@@ -10,7 +10,7 @@ fn lcg(seed: u64) -> impl FnMut() -> f64 {
 }
 
 /// The textbook betting upper bound at time t: bisection on max_{s≤t} ln K⁻_s(m), logs summed
-/// one by one (METHODS.md §1.6, BET-UPPER with the sequence bets and caps c/(1 − m)).
+/// one by one (docs/methods.md §1.6, BET-UPPER with the sequence bets and caps c/(1 − m)).
 fn exact_upper(xs: &[f64], alpha: f64) -> f64 {
     let mut plug = PlugIn::default();
     let bets: Vec<f64> = xs

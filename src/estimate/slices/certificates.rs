@@ -90,7 +90,7 @@ pub fn uniform(scan: &Scanner, excess: &[f64], theta: f64, k: usize, delta: f64,
     Uniform { rademacher, sign_draws: k, deviation }
 }
 
-/// ε of the variance-sensitive uniform bound (METHODS.md §3.3: Bousquet's inequality for the
+/// ε of the variance-sensitive uniform bound (docs/methods.md §3.3: Bousquet's inequality for the
 /// supremum, the self-bounding lower tail for the Rademacher average; BBM 2005, Thm 2.1 has the
 /// same form) for the class {(l − θ)·1_S} (range width D = 1) on n rows, at level δ: with
 /// probability ≥ 1 − δ, for every slice S, P g_S ≥ P_n g_S − ε. δ is spent as 2e^{−x} = δ/2 on
@@ -132,7 +132,7 @@ pub(super) fn two_valued(excess: &[f64], theta: f64) -> Option<f64> {
 /// threshold slices under P_n g² ≤ 2r (intervals are left out: their exact constrained supremum
 /// is O(u²) per feature), by iteration from above (every iterate is conservative), and the
 /// deviation (6K/B) r̂* + x (11 + 5BK)/n with K = 2, B = 1, x = ln(5/δ). Constants as recalled in
-/// METHODS.md §4.3: c1 = 20, c2 = c1 + 11.
+/// docs/methods.md §4.3: c1 = 20, c2 = c1 + 11.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Localized {
     pub fixed_point: f64,

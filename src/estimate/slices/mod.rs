@@ -77,7 +77,7 @@ pub struct Report {
     pub n: usize,
     /// Theorem U1 at half the uniform δ.
     pub uniform: Uniform,
-    /// ε of the variance-sensitive form (METHODS.md §3.3) at the other half.
+    /// ε of the variance-sensitive form (docs/methods.md §3.3) at the other half.
     pub variance_deviation: f64,
     /// The ε applied to every slice: the smaller of the two (each at half the uniform δ, so
     /// taking the smaller after seeing both is valid by the union bound).

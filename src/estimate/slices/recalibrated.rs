@@ -2,7 +2,7 @@
 
 use super::*;
 
-/// The uniform bound over a re-tuned decision threshold (METHODS.md §3.4 a): the classifier
+/// The uniform bound over a re-tuned decision threshold (docs/methods.md §3.4 a): the classifier
 /// predicts 1 when score > t, loss l_t = 1[(score > t) ≠ y]. With t chosen on the same window
 /// (for example to minimise its error), the fixed-predictor bounds no longer apply; Theorem U1
 /// over the class {l_t : t} does: R(t) ≤ R_n(t) + ε for every t at once.

@@ -16,7 +16,7 @@ fn exact_mean(n: usize, f: impl Fn(&[f64]) -> f64) -> f64 {
 #[test]
 fn threshold_rademacher_average_is_the_random_walk_maximum() {
     // On distinct points sup_t Σ_{x_i ≤ t} s_i is the maximum M_n of a simple random walk; its
-    // mean by the reflection principle (Feller, Vol. I, Ch. III), from METHODS.md §3.5:
+    // mean by the reflection principle (Feller, Vol. I, Ch. III), from docs/methods.md §3.5:
     // E M_10 = 2.083984375, E M_16 = 2.7402801513671875.
     assert_eq!(exact_mean(10, max_prefix), 2.083984375);
     assert_eq!(exact_mean(16, max_prefix), 2.7402801513671875);
@@ -26,13 +26,13 @@ fn threshold_rademacher_average_is_the_random_walk_maximum() {
 
 #[test]
 fn interval_rademacher_average_is_the_maximum_subarray_mean() {
-    // E[max subarray of 16 signs] = 4.103546142578125 (exhaustive enumeration, METHODS.md §3.5).
+    // E[max subarray of 16 signs] = 4.103546142578125 (exhaustive enumeration, docs/methods.md §3.5).
     assert_eq!(exact_mean(16, max_subarray), 4.103546142578125);
 }
 
 #[test]
 fn threshold_average_at_n_1000_by_monte_carlo() {
-    // E M_1000 = 24.7376306875 (reflection principle, METHODS.md §3.5); 20000 seeded walks,
+    // E M_1000 = 24.7376306875 (reflection principle, docs/methods.md §3.5); 20000 seeded walks,
     // within 4 standard errors (sd of M_n is about sqrt((1 − 2/π) n) ≈ 19).
     let mut rng = Seeded::new(11);
     let k = 20_000;
@@ -349,7 +349,7 @@ fn short_string_equality_is_equality() {
 
 #[test]
 fn the_variance_sensitive_deviation_is_the_stated_formula() {
-    // METHODS.md §3.3 evaluated independently on a fine grid of α, with the δ split written
+    // docs/methods.md §3.3 evaluated independently on a fine grid of α, with the δ split written
     // out: x = ln(4/δ) (2e^{−x} = δ/2), R = R̃ + sqrt(ln(4/δ)/(2nk)), μ⁺ the kl upper bound at δ/4.
     let (n, k, theta, mean, delta) = (20_000usize, 50usize, 0.15, 0.09, 0.025);
     let u = Uniform { rademacher: 0.004, sign_draws: k, deviation: 0.0 };
