@@ -1,6 +1,6 @@
-//! The one seeded generator of the project: the slice certificates' signs and splits, the
-//! demo's invented data and the benchmarks' streams all come from it, so each is reproducible
-//! from its seed.
+//! The one seeded generator of the project's own code: the slice certificates' signs and splits
+//! and the demo's invented data come from it, so each is reproducible from its seed. (Tests and
+//! benchmarks draw their streams from `rand`'s Xoshiro256PlusPlus, a generator from outside.)
 
 /// A small seeded generator (SplitMix64): signs and splits are reproducible from the seed.
 pub struct Seeded(u64);

@@ -102,6 +102,9 @@ struct Conn {
     /// eviction order.
     last_done: AtomicU64,
     requests: AtomicU32,
+    /// Set at the first byte received (TLS handshake bytes included): a connection that has
+    /// sent nothing is evicted before any that has.
+    heard: AtomicBool,
     evict: tokio::sync::Notify,
 }
 
@@ -136,6 +139,7 @@ impl Table {
             phase_since: AtomicU64::new(now),
             last_done: AtomicU64::new(now),
             requests: AtomicU32::new(0),
+            heard: AtomicBool::new(false),
             evict: tokio::sync::Notify::new(),
         });
         let id = self.next.fetch_add(1, Ordering::Relaxed);
@@ -154,7 +158,9 @@ impl Table {
 
 /// The connection to close for a newcomer: not serving a request; from the peer address with
 /// the most such connections (so one flooding address evicts itself, not a scraper elsewhere);
-/// among those, the one longest without finishing a request.
+/// among those, one that has sent nothing at all before one that has (a scraper mid-way through
+/// its TLS handshake outranks sockets that never spoke); then the one longest without finishing
+/// a request.
 fn pick_victim(conns: &HashMap<u64, Arc<Conn>>) -> Option<u64> {
     let mut per_peer: HashMap<IpAddr, u32> = HashMap::new();
     for c in conns.values() {
@@ -166,7 +172,12 @@ fn pick_victim(conns: &HashMap<u64, Arc<Conn>>) -> Option<u64> {
         .iter()
         .filter(|(_, c)| c.phase.load(Ordering::Acquire) != SERVING)
         .max_by_key(|(id, c)| {
-            (per_peer[&c.peer], std::cmp::Reverse(c.last_done.load(Ordering::Relaxed)), std::cmp::Reverse(**id))
+            (
+                per_peer[&c.peer],
+                !c.heard.load(Ordering::Relaxed),
+                std::cmp::Reverse(c.last_done.load(Ordering::Relaxed)),
+                std::cmp::Reverse(**id),
+            )
         })
         .map(|(id, _)| *id)
 }
@@ -197,11 +208,13 @@ async fn phase_deadline(c: &Conn, limits: &Limits, epoch: Instant) {
     }
 }
 
-/// The connection's stream, noting when the bytes of a new request begin to arrive.
+/// The connection's stream, noting its first byte and, when `phases` (on the HTTP layer, above
+/// any TLS), when the bytes of a new request begin to arrive.
 struct Tracked<I> {
     io: I,
     conn: Arc<Conn>,
     epoch: Instant,
+    phases: bool,
 }
 
 impl<I: tokio::io::AsyncRead + Unpin> tokio::io::AsyncRead for Tracked<I> {
@@ -214,7 +227,9 @@ impl<I: tokio::io::AsyncRead + Unpin> tokio::io::AsyncRead for Tracked<I> {
         let r = std::pin::Pin::new(&mut self.io).poll_read(cx, buf);
         if buf.filled().len() > before {
             let c = &self.conn;
-            if c.phase.compare_exchange(WAITING, READING, Ordering::AcqRel, Ordering::Acquire).is_ok()
+            c.heard.store(true, Ordering::Relaxed);
+            if self.phases
+                && c.phase.compare_exchange(WAITING, READING, Ordering::AcqRel, Ordering::Acquire).is_ok()
                 && c.requests.load(Ordering::Relaxed) > 0
             {
                 // A kept-alive connection's next request: its headers are timed from here.
@@ -286,7 +301,7 @@ where
             Ok::<_, std::convert::Infallible>(resp)
         }
     });
-    let tracked = Tracked { io, conn: conn.clone(), epoch };
+    let tracked = Tracked { io, conn: conn.clone(), epoch, phases: true };
     let mut builder = hyper::server::conn::http1::Builder::new();
     builder
         .timer(hyper_util::rt::TokioTimer::new())
@@ -340,7 +355,7 @@ pub async fn serve(
             let work = async {
                 match acceptor {
                     None => serve_connection(stream, conn.clone(), router, limits, epoch).await,
-                    Some(a) => match a.accept(stream).await {
+                    Some(a) => match a.accept(Tracked { io: stream, conn: conn.clone(), epoch, phases: false }).await {
                         Ok(tls) => serve_connection(tls, conn.clone(), router, limits, epoch).await,
                         Err(e) => tracing::debug!(error = %e, "TLS handshake failed"),
                     },
@@ -406,6 +421,18 @@ mod tests {
         assert!(t.conns.lock().unwrap().contains_key(&scraper));
         assert_eq!(t.stats.evicted.load(Ordering::Relaxed), 2);
         assert_eq!(t.conns.lock().unwrap().len(), 4);
+    }
+
+    #[test]
+    fn a_silent_socket_goes_before_a_client_that_has_spoken() {
+        let t = table();
+        let (talker, c) = t.admit(ip("10.0.0.1"), 2).unwrap();
+        c.heard.store(true, Ordering::Relaxed);
+        c.last_done.store(0, Ordering::Relaxed); // the oldest
+        let (silent, _) = t.admit(ip("10.0.0.1"), 2).unwrap();
+        t.admit(ip("10.0.0.1"), 2).unwrap();
+        let conns = t.conns.lock().unwrap();
+        assert!(conns.contains_key(&talker) && !conns.contains_key(&silent));
     }
 
     #[test]
