@@ -41,6 +41,13 @@ def labelled(port):
         return 0
 
 
+def ready(port):
+    try:
+        return get(port, "/readyz")[0] == 200
+    except OSError:
+        return False
+
+
 def peak_rss_mib(pid):
     with open(f"/proc/{pid}/status") as f:
         for line in f:
@@ -85,7 +92,9 @@ models:
         log = open(os.path.join(work, "daemon.log"), "w")
         proc = subprocess.Popen([binary, "run", "--config", cfg], stderr=log)
         try:
-            wait(lambda: get(port, "/readyz")[0] == 200 if proc.poll() is None else True, 60, "ready")
+            wait(lambda: ready(port) or proc.poll() is not None, 60, "ready")
+            if proc.poll() is not None:
+                raise SystemExit(f"the daemon exited: {open(log.name).read()}")
             start = time.perf_counter()
             for name in names:
                 os.rename(os.path.join(stage, name), os.path.join(spool, name))
