@@ -5,7 +5,6 @@ Usage: python3 bench/daemon_bench.py [--rows 1000000] [--files 100] [--binary ta
 Prints a Markdown table. Standard library only.
 """
 import argparse
-import http.client
 import os
 import random
 import shutil
@@ -13,26 +12,11 @@ import subprocess
 import tempfile
 import time
 
-from benchlib import free_port, get, value
+from benchlib import free_port, get, value, wait_ready
 
 
 def scrape(port):
     return get(port, "/metrics")[1]
-
-
-def wait_ready(port, proc):
-    for _ in range(400):
-        try:
-            c = http.client.HTTPConnection("127.0.0.1", port, timeout=2)
-            c.request("GET", "/readyz")
-            if c.getresponse().status == 200:
-                return
-        except OSError:
-            pass
-        if proc.poll() is not None:
-            raise SystemExit("daemon exited")
-        time.sleep(0.05)
-    raise SystemExit("daemon not ready")
 
 
 def main():

@@ -19,7 +19,7 @@ import subprocess
 import tempfile
 import time
 
-from benchlib import free_port, get, value
+from benchlib import free_port, get, value, wait_ready
 
 FILES = 60
 SPREAD = 25 * 86_400  # seconds the predictions span: inside the 30-day window
@@ -39,13 +39,6 @@ def labelled(port):
         return value(get(port, "/metrics")[1], "riskbound_samples_labelled_total", {"model": "kiln"}) or 0
     except OSError:
         return 0
-
-
-def ready(port):
-    try:
-        return get(port, "/readyz")[0] == 200
-    except OSError:
-        return False
 
 
 def peak_rss_mib(pid):
@@ -92,9 +85,7 @@ models:
         log = open(os.path.join(work, "daemon.log"), "w")
         proc = subprocess.Popen([binary, "run", "--config", cfg], stderr=log)
         try:
-            wait(lambda: ready(port) or proc.poll() is not None, 60, "ready")
-            if proc.poll() is not None:
-                raise SystemExit(f"the daemon exited: {open(log.name).read()}")
+            wait_ready(port, proc)
             start = time.perf_counter()
             for name in names:
                 os.rename(os.path.join(stage, name), os.path.join(spool, name))
