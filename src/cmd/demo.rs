@@ -158,7 +158,7 @@ pub fn table(snap: &Snapshot) -> String {
                 b.upper,
                 if alarms.is_empty() { "none (no sla)".to_string() } else { alarms.join(", ") }
             );
-            if a.mean > b.upper || a.mean < b.lower {
+            if super::track::left_sequence(*b, a.mean) {
                 // The running intersection pinned the sequence while the mean moved on.
                 let _ = writeln!(
                     s,

@@ -274,34 +274,28 @@ pub fn write_table<W: std::io::Write>(doc: &Value, out: &mut W) -> std::io::Resu
     if rows.is_empty() {
         writeln!(out, "(no slice with risk above the SLA in the discovery half)")?;
     }
-    for (i, s) in rows.iter().enumerate() {
+    // One line per slice; `by` is the key naming its certificate (found) or method (registered).
+    let line = |out: &mut W, rank: String, s: &Value, by: &str| {
         writeln!(
             out,
             "{:<4} {:<36} {:>8} {:>8} {:>8} {:>8}  {:<14} {}",
-            i + 1,
+            rank,
             s["description"].as_str().unwrap_or(""),
             s["n"],
             f(&s["mean"]),
             f(&s["lower"]),
             f(&s["upper"]),
-            s["certified_by"].as_str().unwrap_or(""),
+            s[by].as_str().unwrap_or(""),
             if s["violates_sla"].as_bool() == Some(true) { "yes" } else { "no" }
-        )?;
+        )
+    };
+    for (i, s) in rows.iter().enumerate() {
+        line(out, (i + 1).to_string(), s, "certified_by")?;
     }
     if let Some(reg) = doc["registered"].as_array().filter(|r| !r.is_empty()) {
         writeln!(out, "\nregistered slices (fixed in advance, δ/M each):")?;
         for s in reg {
-            writeln!(
-                out,
-                "     {:<36} {:>8} {:>8} {:>8} {:>8}  {:<14} {}",
-                s["description"].as_str().unwrap_or(""),
-                s["n"],
-                f(&s["mean"]),
-                f(&s["lower"]),
-                f(&s["upper"]),
-                s["method"].as_str().unwrap_or(""),
-                if s["violates_sla"].as_bool() == Some(true) { "yes" } else { "no" }
-            )?;
+            line(out, String::new(), s, "method")?;
         }
     }
     let r = &doc["recalibrated_threshold"];

@@ -109,7 +109,7 @@ fn write_table_row<W: Write>(out: &mut W, key: Option<&str>, t: &Tracker) -> std
 
 /// True when the running intersection no longer holds the mean: crossed (lower above
 /// upper), or pinned while the mean moved on.
-fn left_sequence(b: crate::estimate::Bounds, mean: f64) -> bool {
+pub fn left_sequence(b: crate::estimate::Bounds, mean: f64) -> bool {
     b.lower > b.upper || mean < b.lower || mean > b.upper
 }
 

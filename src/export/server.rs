@@ -67,7 +67,8 @@ pub use crate::config::HttpLimits as Limits;
 /// The read buffer hyper may grow per connection: the header limit plus room for a small
 /// request body. Together with the response being written this bounds a connection's memory.
 fn read_buffer_bytes(limits: &Limits) -> usize {
-    (limits.max_header_bytes + 8 * 1024).max(8 * 1024)
+    // At least 9 KiB (the header limit is ≥ 1 KiB), above hyper's 8 KiB minimum.
+    limits.max_header_bytes + 8 * 1024
 }
 
 /// Counts of the listener, exported as metrics.
