@@ -19,7 +19,7 @@ fn worst_case_completion_matches_scipy_beta_quantiles() {
     for c in fixture()["clopper_pearson_worst_case"].as_array().unwrap() {
         let (k, u, n) = (c["k"].as_u64().unwrap(), c["u"].as_u64().unwrap(), c["n"].as_u64().unwrap());
         let conf = Confidence::new(c["confidence"].as_f64().unwrap()).unwrap();
-        let mut cohort = Cohort::default();
+        let mut cohort = Cohort::new(1.0);
         let known: Vec<f64> = (0..n - u).map(|i| if i < k { 1.0 } else { 0.0 }).collect();
         cohort.push_group(known, u);
         let b = delay_robust::bounds(Method::ClopperPearson, &cohort, 1.0, conf).unwrap();
@@ -68,7 +68,7 @@ enum Mechanism {
 /// One window: N predictions one second apart, looked at N seconds after the first; returns the
 /// cohort (each second its own group) and the labelled losses.
 fn window(mech: Mechanism, rng: &mut Lcg, n: usize, p: f64) -> (Cohort, Vec<f64>) {
-    let mut cohort = Cohort::default();
+    let mut cohort = Cohort::new(1.0);
     let mut labelled = Vec::new();
     for t in 0..n {
         let (wrong, delay) = match mech {

@@ -78,7 +78,7 @@ pub fn run<R: Read>(plan: &Plan, src: R) -> Result<Report, BoundError> {
         let i = groups.slot(row.key, || Group {
             summary: new_summary(),
             clipped: 0,
-            cohort: estimate::delay_robust::Cohort::default(),
+            cohort: estimate::delay_robust::Cohort::new(loss_max),
         });
         let g = &mut groups.items[i].1;
         match row.loss {

@@ -80,6 +80,10 @@ impl Config {
                 None => s += "  sla: none\n",
             }
             s += &format!("  window bounds: {}\n", m.window_guarantee.as_str());
+            s += &format!(
+                "  max_samples: {} (betting and the slice search read a seeded subsample of at most this many; the other methods every sample)\n",
+                m.max_samples
+            );
             if let Some(sla) = &m.sla {
                 let delta = m.confidence.delta();
                 s += &format!(

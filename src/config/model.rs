@@ -159,6 +159,21 @@ impl Checker {
             },
         };
 
+        let least = if slices.is_some() { MIN_SLICE_SAMPLES } else { MIN_MAX_SAMPLES };
+        let max_samples = match &raw.max_samples {
+            None => DEFAULT_MAX_SAMPLES,
+            Some(v) if v.value >= least as i64 => v.value as u64,
+            Some(v) => {
+                let why = if slices.is_some() {
+                    format!("must be at least {least} with a slice search (it discovers on half the samples and confirms on the other half), got {}", v.value)
+                } else {
+                    format!("must be at least {least}, got {}", v.value)
+                };
+                self.push(v, &format!("{k}.max_samples"), why);
+                DEFAULT_MAX_SAMPLES
+            }
+        };
+
         if self.issues.len() > start {
             return None;
         }
@@ -175,6 +190,7 @@ impl Checker {
             sla,
             alerts,
             slices,
+            max_samples,
         })
     }
 }

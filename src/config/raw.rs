@@ -36,6 +36,7 @@ pub(super) struct RawModel {
     pub(super) sla: Option<Spanned<RawSla>>,
     pub(super) alerts: Option<Spanned<RawAlerts>>,
     pub(super) slices: Option<Spanned<RawSlices>>,
+    pub(super) max_samples: Option<Spanned<i64>>,
 }
 
 #[derive(Deserialize)]

@@ -26,29 +26,31 @@
 //!
 //! Pure: no I/O. Losses are in [0, B]; the result is in loss units.
 
-use super::{bernstein, betting, binomial, hoeffding, kl, Bounds, Confidence, EstimateError, Method};
+use super::{bernstein, betting, binomial, hoeffding, kl, Bounds, Confidence, EstimateError, LossStats, Method};
 
-/// A window's cohort: the known losses in prediction-time order, grouped by prediction second,
-/// with the number of predictions of each group that have no label.
-#[derive(Clone, Debug, Default, PartialEq)]
+/// A window's cohort: the exact statistics of its known losses, the number of its predictions
+/// without a label, and, for betting, its predictions (all, or a uniform subsample of them) in
+/// prediction-time order, grouped by prediction second.
+#[derive(Clone, Debug, PartialEq)]
 pub struct Cohort {
-    /// Known losses in [0, B], group by group.
+    loss_max: f64,
+    /// The known losses' statistics.
+    pub known: LossStats,
+    /// Predictions of the cohort without a label.
+    pub unknown: u64,
+    /// What betting reads.
+    pub sample: Grouped,
+}
+
+/// Predictions in prediction-time order, grouped by prediction second: the known losses in
+/// [0, B], group by group, and per group (known losses in it, predictions in it without a label).
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Grouped {
     pub known: Vec<f64>,
-    /// Per group: (known losses in it, predictions in it without a label).
     pub groups: Vec<(u64, u64)>,
 }
 
-impl Cohort {
-    /// Predictions in the cohort.
-    pub fn n(&self) -> u64 {
-        self.known.len() as u64 + self.unknown()
-    }
-
-    /// Predictions of the cohort without a label.
-    pub fn unknown(&self) -> u64 {
-        self.groups.iter().map(|g| g.1).sum()
-    }
-
+impl Grouped {
     /// Appends a group.
     pub fn push_group(&mut self, known: impl IntoIterator<Item = f64>, unknown: u64) {
         let before = self.known.len();
@@ -56,6 +58,52 @@ impl Cohort {
         let k = (self.known.len() - before) as u64;
         if k + unknown > 0 {
             self.groups.push((k, unknown));
+        }
+    }
+
+    /// Predictions in it.
+    pub fn n(&self) -> u64 {
+        self.known.len() as u64 + self.groups.iter().map(|g| g.1).sum::<u64>()
+    }
+}
+
+impl Cohort {
+    /// An empty cohort of losses in [0, `loss_max`] whose betting sample is all of it.
+    pub fn new(loss_max: f64) -> Cohort {
+        Cohort { loss_max, known: LossStats::default(), unknown: 0, sample: Grouped::default() }
+    }
+
+    /// A cohort from statistics kept elsewhere and a betting sample drawn from it.
+    pub fn from_parts(loss_max: f64, known: LossStats, unknown: u64, sample: Grouped) -> Cohort {
+        Cohort { loss_max, known, unknown, sample }
+    }
+
+    /// Predictions in the cohort.
+    pub fn n(&self) -> u64 {
+        self.known.n() + self.unknown
+    }
+
+    /// Predictions of the cohort without a label.
+    pub fn unknown(&self) -> u64 {
+        self.unknown
+    }
+
+    /// Appends a group to the statistics and to the betting sample.
+    pub fn push_group(&mut self, known: impl IntoIterator<Item = f64>, unknown: u64) {
+        let before = self.sample.known.len();
+        self.sample.push_group(known, unknown);
+        for &l in &self.sample.known[before..] {
+            self.known.push(l, self.loss_max);
+        }
+        self.unknown += unknown;
+    }
+
+    /// How many predictions `method` reads: the betting sample's size for betting, else all.
+    pub fn used_by(&self, method: Method) -> u64 {
+        if method.needs_losses() {
+            self.sample.n()
+        } else {
+            self.n()
         }
     }
 }
@@ -89,10 +137,10 @@ pub fn bounds(method: Method, cohort: &Cohort, loss_max: f64, confidence: Confid
     }
     let delta = confidence.delta();
     let u = cohort.unknown();
-    let xs: Vec<f64> = cohort.known.iter().map(|l| (l / loss_max).clamp(0.0, 1.0)).collect();
-    let s: f64 = xs.iter().sum();
+    let k = &cohort.known;
+    let s = k.sum_scaled();
     let nf = n as f64;
-    let (lo_mean, hi_mean) = (s / nf, ((s + u as f64) / nf).min(1.0));
+    let (lo_mean, hi_mean) = ((s / nf).clamp(0.0, 1.0), ((s + u as f64) / nf).min(1.0));
     let raw = match method {
         Method::Hoeffding => Bounds {
             lower: hoeffding::bounds(n, lo_mean, delta).lower,
@@ -100,29 +148,32 @@ pub fn bounds(method: Method, cohort: &Cohort, loss_max: f64, confidence: Confid
         },
         Method::Kl => Bounds { lower: kl::bounds(n, lo_mean, delta).lower, upper: kl::bounds(n, hi_mean, delta).upper },
         Method::ClopperPearson => {
-            let between = xs.iter().filter(|&&x| x != 0.0 && x != 1.0).count() as u64;
-            if between > 0 {
-                return Err(EstimateError::NotBinary(between));
+            if k.n_between() > 0 {
+                return Err(EstimateError::NotBinary(k.n_between()));
             }
-            let k = xs.iter().filter(|&&x| x == 1.0).count() as u64;
             Bounds {
-                lower: binomial::clopper_pearson(k, n, delta).lower,
-                upper: binomial::clopper_pearson(k + u, n, delta).upper,
+                lower: binomial::clopper_pearson(k.n_at_max(), n, delta).lower,
+                upper: binomial::clopper_pearson(k.n_at_max() + u, n, delta).upper,
             }
         }
         Method::EmpiricalBernstein => {
-            let q: f64 = xs.iter().map(|x| x * x).sum();
-            let v = max_completed_variance(xs.len() as u64, s, q, u);
+            let v = max_completed_variance(k.n(), s, k.squares_scaled(), u);
             Bounds {
                 lower: bernstein::maurer_pontil(n, lo_mean, v, delta).lower,
                 upper: bernstein::maurer_pontil(n, hi_mean, v, delta).upper,
             }
         }
         Method::Betting => {
-            let (mut low, mut high) = (Vec::with_capacity(n as usize), Vec::with_capacity(n as usize));
-            let mut ends = Vec::with_capacity(cohort.groups.len());
+            let g = &cohort.sample;
+            if g.n() == 0 {
+                return Err(EstimateError::Empty);
+            }
+            let xs: Vec<f64> = g.known.iter().map(|l| (l / loss_max).clamp(0.0, 1.0)).collect();
+            let m = g.n() as usize;
+            let (mut low, mut high) = (Vec::with_capacity(m), Vec::with_capacity(m));
+            let mut ends = Vec::with_capacity(g.groups.len());
             let mut at = 0usize;
-            for &(k, unknown) in &cohort.groups {
+            for &(k, unknown) in &g.groups {
                 let known = &xs[at..at + k as usize];
                 at += k as usize;
                 low.extend_from_slice(known);
@@ -137,6 +188,7 @@ pub fn bounds(method: Method, cohort: &Cohort, loss_max: f64, confidence: Confid
             }
         }
     };
+    let raw = super::widen_for_rounding(raw, k.n_rounded());
     Ok(Bounds { lower: raw.lower * loss_max, upper: raw.upper * loss_max })
 }
 
@@ -145,7 +197,7 @@ mod tests {
     use super::*;
 
     fn cohort(groups: &[(&[f64], u64)]) -> Cohort {
-        let mut c = Cohort::default();
+        let mut c = Cohort::new(1.0);
         for (k, u) in groups {
             c.push_group(k.iter().copied(), *u);
         }

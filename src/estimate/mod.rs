@@ -22,7 +22,7 @@ pub mod slices;
 pub mod special;
 mod summary;
 
-pub use summary::LossSummary;
+pub use summary::{LossStats, LossSummary};
 
 use std::fmt;
 
@@ -160,9 +160,20 @@ pub fn bounds(method: Method, summary: &LossSummary, confidence: Confidence) -> 
     // and a method's own rounding (betting's grid search, for one) can leave the printed mean a
     // few ulps outside. Widening to include it costs nothing in coverage and keeps the promise
     // "the bounds contain the observed mean" as the mean is printed.
+    // Losses are held to 2^-63 of B (see [`summary::ROUNDING`]); where any was rounded the
+    // bounds widen by the most that rounding can move the mean.
+    let raw = widen_for_rounding(raw, summary.stats().n_rounded());
     let b = raw.scaled(summary.loss_max());
     let mean_out = summary.mean();
     Ok(Bounds { lower: b.lower.min(mean_out), upper: b.upper.max(mean_out) })
+}
+
+/// Widens scaled bounds by the fixed-point rounding when `rounded` losses were rounded.
+pub fn widen_for_rounding(b: Bounds, rounded: u64) -> Bounds {
+    if rounded == 0 {
+        return b;
+    }
+    Bounds { lower: (b.lower - summary::ROUNDING).max(0.0), upper: (b.upper + summary::ROUNDING).min(1.0) }
 }
 
 #[cfg(test)]

@@ -39,6 +39,7 @@ pub mod names {
     pub const LOWER: &str = "riskbound_risk_lower_bound";
     pub const OBSERVED: &str = "riskbound_risk_observed";
     pub const SAMPLES: &str = "riskbound_window_samples";
+    pub const SAMPLES_USED: &str = "riskbound_window_samples_used";
     pub const TOTAL_LOSS: &str = "riskbound_window_total_loss";
     pub const CONFIDENCE: &str = "riskbound_bound_confidence_ratio";
     pub const SLA_MAX: &str = "riskbound_sla_max_risk";
@@ -239,6 +240,28 @@ fn encode_bounds(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::
                     .chain(std::iter::once((mw(&m.name, SINCE_RESET), (m.anytime.n - m.anytime.labelled) as f64)))
             }),
         )?;
+    let mut used = Vec::new();
+    for m in &snap.models {
+        for w in &m.windows {
+            let guarantee = m.window_guarantee.as_str();
+            let cohort = w.cohort.iter().flat_map(|c| c.used.iter().map(|(k, n)| (k.name(), *n)));
+            let per = w.used.iter().map(|(k, n)| (k.name(), *n, guarantee));
+            let per = per.chain(cohort.map(|(k, n)| (k, n, delay_robust_guarantee(m.window_guarantee))));
+            let slices = w.slice_samples.map(|n| ("slice-search", n, guarantee));
+            for (method, n, g) in per.chain(slices) {
+                let mut l = mw(&m.name, &w.name);
+                l.push(("method", method.to_string()));
+                l.push(("guarantee", g.to_string()));
+                used.push((l, n as f64));
+            }
+        }
+    }
+    gauges(
+        e,
+        names::SAMPLES_USED,
+        "Samples each method read: every labelled sample (every prediction, delay-robust) for the methods that need only their sums; for betting and the slice search a seeded uniform subsample of at most max_samples, chosen by request id alone",
+        used,
+    )?;
     Ok(())
 }
 
@@ -597,8 +620,10 @@ mod tests {
                 mean: 0.5,
                 loss_sum: 1.5,
                 bounds: vec![],
+                used: vec![],
                 state: None,
                 slices: None,
+                slice_samples: None,
                 cohort: None,
             }],
             window_guarantee: crate::config::WindowGuarantee::PerWindow,

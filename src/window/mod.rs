@@ -110,10 +110,14 @@ pub struct WindowSnapshot {
     /// Σ of the window's losses (for 0-1 loss, its error count), exact where `mean · n` rounds.
     pub loss_sum: f64,
     pub bounds: Vec<(Method, Bounds)>,
+    /// The samples each method of `bounds` read: all of them, or (betting) the subsample.
+    pub used: Vec<(Method, u64)>,
     /// `None` when the model has no SLA.
     pub state: Option<(SlaState, SlaReason)>,
     /// The slice search, when the model configures one.
     pub slices: Option<SliceSnapshot>,
+    /// The samples the slice search read (the subsample's rows with features).
+    pub slice_samples: Option<u64>,
     /// The window's cohort and its delay-robust bounds (`None` before the first prediction).
     pub cohort: Option<CohortSnapshot>,
 }
@@ -126,9 +130,11 @@ pub struct CohortSnapshot {
     pub unlabelled: u64,
     /// Bounds with every unknown loss at 0 (lower) and at B (upper), at the window confidence.
     pub bounds: Vec<(Method, Bounds)>,
+    /// The predictions each method of `bounds` read: all, or (betting) the subsample.
+    pub used: Vec<(Method, u64)>,
 }
 
-/// The delay-robust bounds of a cohort by every method that applies (as [`window_bounds`]).
+/// The delay-robust bounds of a cohort by every method that applies (as [`summary_bounds`]).
 pub fn cohort_bounds(cohort: &Cohort, model: &ModelConfig, confidence: Confidence) -> Vec<(Method, Bounds)> {
     let mut out = Vec::new();
     if cohort.n() == 0 {
@@ -282,16 +288,8 @@ pub struct Snapshot {
     pub models: Vec<ModelSnapshot>,
 }
 
-/// The bounds of a set of losses by every method that applies, each at `confidence`.
-pub fn window_bounds(
-    losses: &[f64],
-    model: &ModelConfig,
-    confidence: Confidence,
-) -> (LossSummary, Vec<(Method, Bounds)>) {
-    let mut s = LossSummary::keeping_losses(model.loss.max());
-    for &l in losses {
-        s.push(l);
-    }
+/// The bounds of a summary by every method that applies, each at `confidence`.
+pub fn summary_bounds(s: &LossSummary, model: &ModelConfig, confidence: Confidence) -> Vec<(Method, Bounds)> {
     let mut out = Vec::new();
     if s.n() > 0 {
         for m in Method::ALL {
@@ -299,13 +297,13 @@ pub fn window_bounds(
             // only when the config says they are binary (never), so series do not come and go.
             let applies = if m == Method::ClopperPearson { model.loss.is_binary() } else { true };
             if applies {
-                if let Ok(b) = estimate::bounds(m, &s, confidence) {
+                if let Ok(b) = estimate::bounds(m, s, confidence) {
                     out.push((m, b));
                 }
             }
         }
     }
-    (s, out)
+    out
 }
 
 /// Computes one model's snapshot from the store; `evaluation` is the 1-based number of this
@@ -325,19 +323,28 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
     let decided = counters.joined + counters.expired;
     let label_coverage = (decided > 0).then(|| counters.joined as f64 / decided as f64);
     let mut windows = Vec::with_capacity(model.windows.len());
-    for w in &model.windows {
-        // One read of the window serves the bounds and, when configured, the slice search.
-        let (rows, cohort) = store.window_view(&model.name, w, model.label_wait_ms)?;
-        let losses: Vec<f64> = rows.iter().map(|(l, _)| *l).collect();
-        let (summary, mut bounds) = window_bounds(&losses, model, window_confidence);
-        let cohort = cohort.map(|(range, c)| CohortSnapshot {
-            range,
-            predictions: c.n(),
-            unlabelled: c.unknown(),
-            bounds: if spent_out { Vec::new() } else { cohort_bounds(&c, model, window_confidence) },
+    for (i, w) in model.windows.iter().enumerate() {
+        // One read of the window serves the bounds and, when configured, the slice search: the
+        // exact statistics of every sample, and a bounded subsample for what needs samples.
+        let view = store.window_view(model, i, model.max_samples)?;
+        let sampled: Vec<f64> = view.sample.iter().map(|(l, _)| *l).collect();
+        let summary = LossSummary::with_sample(model.loss.max(), view.stats, Some(&sampled));
+        let mut bounds = summary_bounds(&summary, model, window_confidence);
+        let mut used: Vec<(Method, u64)> = bounds.iter().map(|(m, _)| (*m, summary.used_by(*m))).collect();
+        let rows = view.sample;
+        let cohort = view.cohort.map(|(range, c)| {
+            let bounds = if spent_out { Vec::new() } else { cohort_bounds(&c, model, window_confidence) };
+            CohortSnapshot {
+                range,
+                predictions: c.n(),
+                unlabelled: c.unknown(),
+                used: bounds.iter().map(|(m, _)| (*m, c.used_by(*m))).collect(),
+                bounds,
+            }
         });
         if spent_out {
             bounds.clear();
+            used.clear();
         }
         let mut state = model.sla.as_ref().map(|sla| {
             let deciding = match sla.decide_on {
@@ -354,12 +361,17 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
                 None => (SlaState::Inconclusive, SlaReason::TooFewSamples),
             }
         });
+        let mut slice_samples = None;
         let slices = match &model.slices {
             Some(_) => {
                 // Rows stored before slices were configured carry no features and sit out.
                 let featured: Vec<(f64, Vec<String>)> =
                     rows.into_iter().filter_map(|(l, f)| f.map(|f| (l, f))).collect();
-                slice_snapshot(&featured, model, window_confidence)
+                let sn = slice_snapshot(&featured, model, window_confidence);
+                if sn.is_some() {
+                    slice_samples = Some(featured.len() as u64);
+                }
+                sn
             }
             None => None,
         };
@@ -378,8 +390,10 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
             mean: summary.mean(),
             loss_sum: summary.sum(),
             bounds,
+            used,
             state,
             slices,
+            slice_samples,
             cohort,
         });
     }

@@ -157,6 +157,7 @@ pub fn model_config() -> ModelConfig {
         sla: None,
         alerts: Default::default(),
         slices: None,
+        max_samples: riskbound::config::DEFAULT_MAX_SAMPLES,
     }
 }
 

@@ -25,10 +25,9 @@ pub(super) struct Joins {
     pub(super) expired: u64,
     /// The expiry cutoff before this file: every prediction older than it is decided.
     pub(super) expired_to: i64,
-    /// The samples it stored, in join order, keyed as in [`KeptSamples`].
-    pub(super) kept: Vec<((i64, i64), Kept)>,
-    /// Predictions it added, per prediction second (the cohorts' denominators).
-    pub(super) counted: BTreeMap<i64, u64>,
+    /// The samples it stored and the predictions it counted (per second and sampling level),
+    /// for the windows' ranges.
+    pub(super) fresh: Fresh,
     /// Predictions whose label_wait it closed, in prediction-time order: the loss, or `None`
     /// when no label came. The anytime tracker takes them in this order.
     pub(super) matured: Vec<Option<f64>>,
@@ -162,27 +161,28 @@ impl Store {
                 if expired_to == i64::MIN { None } else { Some(expired_to) }
             ],
         )?;
-        for (sec, n) in &joins.counted {
+        for (&(sec, level), n) in &joins.fresh.counted {
             tx.prepare_cached(
-                "INSERT INTO pred_count (model, sec, n) VALUES (?1, ?2, ?3)
-                 ON CONFLICT (model, sec) DO UPDATE SET n = n + excluded.n",
+                "INSERT INTO pred_count (model, sec, level, n) VALUES (?1, ?2, ?3, ?4)
+                 ON CONFLICT (model, sec, level) DO UPDATE SET n = n + excluded.n",
             )?
-            .execute(params![m, sec, *n as i64])?;
+            .execute(params![m, sec, level, *n as i64])?;
         }
-        let keep_from = Self::prune_samples(&tx, model)?;
+        // The windows move inside the transaction, before pruning deletes what they leave: the
+        // rows a range leaves are read back to be subtracted. A failure drops the ranges (they
+        // are rebuilt from the committed state on next use).
+        let ranges = match self.ranges.get_mut().remove(m) {
+            Some(mut r) if r.fits(model) => {
+                r.advance(&tx, model, &joins.fresh)?;
+                r
+            }
+            _ => ModelRanges::build(&tx, model)?,
+        };
+        Self::prune(&tx, m, ranges.keep_from())?;
         out.tracker_restarted = Self::advance_tracker(&tx, model, &joins.matured, now_ms)?;
         tx.commit()?;
-        // Only once the commit stands: the samples in memory never run ahead of the database.
-        if let Some(mem) = self.kept.get_mut().get_mut(m) {
-            mem.kept.extend(joins.kept);
-            for (sec, n) in joins.counted {
-                *mem.counts.entry(sec).or_default() += n;
-            }
-            if keep_from > i64::MIN {
-                mem.kept = mem.kept.split_off(&(keep_from, i64::MIN));
-                mem.counts = mem.counts.split_off(&keep_from.div_euclid(1000));
-            }
-        }
+        // Only once the commit stands: the ranges never run ahead of the database.
+        self.ranges.get_mut().insert(m.to_string(), ranges);
         Ok(out)
     }
 
@@ -248,12 +248,12 @@ impl Store {
         joins: &mut Joins,
     ) -> rusqlite::Result<()> {
         let NewSample { id, t_pred, t_label, loss, features } = s;
+        let level = level_of(id);
         tx.prepare_cached(
-            "INSERT INTO sample (model, id, t_pred, t_label, loss, features) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+            "INSERT INTO sample (model, id, t_pred, t_label, loss, features, level) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
         )?
-        .execute(params![model, id, t_pred, t_label, loss, features])?;
-        let kept = Kept { loss, features: parse_features(features), delay_ms: t_label - t_pred };
-        joins.kept.push(((t_pred, tx.last_insert_rowid()), kept));
+        .execute(params![model, id, t_pred, t_label, loss, features, level])?;
+        joins.fresh.samples.push(((t_pred, tx.last_insert_rowid()), loss, level));
         joins.delays.push(((t_label - t_pred).max(0) as f64) / 1000.0);
         Ok(())
     }
@@ -303,7 +303,7 @@ impl Store {
             }
             return Ok(Err(RejectReason::DuplicatePrediction));
         }
-        *joins.counted.entry(rec.time_ms.div_euclid(1000)).or_default() += 1;
+        *joins.fresh.counted.entry((rec.time_ms.div_euclid(1000), level_of(&rec.id))).or_default() += 1;
         if state == EXPIRED {
             joins.expired += 1;
             joins.matured.push(None);

@@ -19,13 +19,15 @@ use crate::ingest::records::{Record, Reject, RejectReason};
 use crate::loss::{self, LossSpec};
 
 mod ingest;
-mod memory;
+mod ranges;
 mod schema;
 mod tracker;
+mod views;
 
-pub use memory::cohort_start;
-use memory::*;
+use ranges::*;
+pub use ranges::{level_of, sample_level, LEVELS, SAMPLE_SEED};
 use schema::*;
+pub use views::{DirectWindow, WindowView};
 
 /// Upper bounds (seconds) of the label-delay histogram buckets: a minute to two weeks.
 pub const DELAY_BUCKETS: [f64; 12] =
@@ -110,10 +112,6 @@ pub type WindowRow = (f64, Option<Vec<String>>);
 /// outcomes.
 pub type DelayRow = (f64, i64);
 
-/// A window as the estimators read it: its labelled rows and, once there are predictions, its
-/// cohort (see [`Store::window_view`]).
-pub type WindowView = (Vec<WindowRow>, Option<(CohortRange, Cohort)>);
-
 /// The whole seconds of prediction time a window's cohort covers, inclusive.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct CohortRange {
@@ -153,11 +151,10 @@ pub struct Batch<'a> {
 /// The durable state.
 pub struct Store {
     conn: Connection,
-    /// Each model's kept samples, read from the database the first time a window needs them and
-    /// then kept in step with it after every commit (the same inserts, the same pruning), so a
-    /// publish cuts its windows from memory instead of reading them back from SQLite: with a
-    /// window of millions of samples that read took seconds, once a second.
-    kept: std::cell::RefCell<std::collections::HashMap<String, Memory>>,
+    /// Each model's window ranges with their exact statistics, built from the database the
+    /// first time a window needs them and then moved with every commit, so a publish reads
+    /// O(windows) numbers and a bounded subsample instead of every row of every window.
+    ranges: std::cell::RefCell<std::collections::HashMap<String, ModelRanges>>,
 }
 
 impl Store {
@@ -178,7 +175,7 @@ impl Store {
         conn.pragma_update(None, "temp_store", "MEMORY")?;
         conn.execute_batch(SCHEMA)?;
         migrate(&mut conn)?;
-        Ok(Store { conn, kept: Default::default() })
+        Ok(Store { conn, ranges: Default::default() })
     }
 
     /// The committed state of `dir`, for reading only: what /metrics shows while the volume
@@ -200,7 +197,7 @@ impl Store {
             let uri = format!("file:{escaped}?immutable=1");
             Connection::open_with_flags(uri, flags).ok().filter(|c| readable(c).is_ok())
         })?;
-        Some(Store { conn, kept: Default::default() })
+        Some(Store { conn, ranges: Default::default() })
     }
 
     /// A database in memory, for tests and fuzzing: the same schema and logic, no durability.
@@ -208,7 +205,7 @@ impl Store {
         let mut conn = Connection::open_in_memory()?;
         conn.execute_batch(SCHEMA)?;
         migrate(&mut conn)?;
-        Ok(Store { conn, kept: Default::default() })
+        Ok(Store { conn, ranges: Default::default() })
     }
 
     /// True when a file of this name, size and mtime was taken: after a restart the spool is not
@@ -253,11 +250,6 @@ impl Store {
             .query_row(params![model, kind.as_str(), hash], |_| Ok(()))
             .optional()?
             .is_some())
-    }
-
-    /// Samples currently kept for a model (a counter, because COUNT(*) scans the table).
-    fn sample_count(tx: &Connection, model: &str) -> rusqlite::Result<u64> {
-        Self::counter(tx, model, "samples_kept")
     }
 
     /// One counter's value (0 when it was never bumped).

@@ -21,7 +21,7 @@ CREATE TABLE IF NOT EXISTS orphan (
 CREATE INDEX IF NOT EXISTS orphan_time ON orphan (model, t_label);
 CREATE TABLE IF NOT EXISTS sample (
     seq INTEGER PRIMARY KEY, model TEXT NOT NULL, id TEXT NOT NULL,
-    t_pred INTEGER NOT NULL, t_label INTEGER NOT NULL, loss REAL NOT NULL);
+    t_pred INTEGER NOT NULL, t_label INTEGER NOT NULL, loss REAL NOT NULL, level INTEGER NOT NULL DEFAULT 0);
 CREATE INDEX IF NOT EXISTS sample_time ON sample (model, t_pred);
 CREATE TABLE IF NOT EXISTS counter (
     model TEXT NOT NULL, name TEXT NOT NULL, value REAL NOT NULL,
@@ -29,8 +29,8 @@ CREATE TABLE IF NOT EXISTS counter (
 CREATE TABLE IF NOT EXISTS model_meta (
     model TEXT PRIMARY KEY, watermark INTEGER, last_commit_ms INTEGER, expired_to INTEGER, counted_from INTEGER);
 CREATE TABLE IF NOT EXISTS pred_count (
-    model TEXT NOT NULL, sec INTEGER NOT NULL, n INTEGER NOT NULL,
-    PRIMARY KEY (model, sec)) WITHOUT ROWID;
+    model TEXT NOT NULL, sec INTEGER NOT NULL, level INTEGER NOT NULL DEFAULT 0, n INTEGER NOT NULL,
+    PRIMARY KEY (model, sec, level)) WITHOUT ROWID;
 CREATE TABLE IF NOT EXISTS tracker (
     model TEXT PRIMARY KEY, state TEXT, reset_ms INTEGER, resets INTEGER NOT NULL DEFAULT 0);
 ";
@@ -55,7 +55,7 @@ pub(super) fn bump(tx: &Connection, model: &str, name: &str, by: f64) -> rusqlit
 }
 
 /// The layout version this build writes (`PRAGMA user_version`).
-pub(super) const LAYOUT: i64 = 3;
+pub(super) const LAYOUT: i64 = 4;
 
 /// Brings state written by an older build up to this layout, once, in one transaction.
 /// Columns added later are NULL for old rows (no slice features recorded, no expiry cutoff
@@ -105,6 +105,30 @@ pub(super) fn migrate(conn: &mut Connection) -> rusqlite::Result<()> {
                  (SELECT MAX(t_pred) / 1000 + 1 FROM sample WHERE sample.model = model_meta.model));",
         )?;
     }
+    // Layout 4 gives samples and prediction counts a sampling level (see `ranges::level_of`),
+    // indexed so a window's subsample is read without visiting the rest. Rows written before
+    // have level 0: they join only the level-0 subsample, which is every row (a choice by age,
+    // never by outcome, so the subsample stays a valid one under the i.i.d. assumption).
+    let has_level: bool = tx.prepare("SELECT 1 FROM pragma_table_info('sample') WHERE name = 'level'")?.exists([])?;
+    if !has_level {
+        tx.execute_batch("ALTER TABLE sample ADD COLUMN level INTEGER NOT NULL DEFAULT 0")?;
+    }
+    let counts_have_level: bool =
+        tx.prepare("SELECT 1 FROM pragma_table_info('pred_count') WHERE name = 'level'")?.exists([])?;
+    if !counts_have_level {
+        tx.execute_batch(
+            "CREATE TABLE pred_count_4 (
+                 model TEXT NOT NULL, sec INTEGER NOT NULL, level INTEGER NOT NULL DEFAULT 0, n INTEGER NOT NULL,
+                 PRIMARY KEY (model, sec, level)) WITHOUT ROWID;
+             INSERT INTO pred_count_4 (model, sec, level, n) SELECT model, sec, 0, n FROM pred_count;
+             DROP TABLE pred_count;
+             ALTER TABLE pred_count_4 RENAME TO pred_count;",
+        )?;
+    }
+    tx.execute_batch(
+        "CREATE INDEX IF NOT EXISTS sample_level ON sample (model, level, t_pred);
+         CREATE INDEX IF NOT EXISTS pred_count_level ON pred_count (model, level, sec);",
+    )?;
     tx.execute_batch(&format!("PRAGMA user_version = {LAYOUT}"))?;
     tx.commit()
 }
