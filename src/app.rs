@@ -67,7 +67,6 @@ struct Pipeline {
     config: Config,
     store: Store,
     snapshot: SharedSnapshot,
-    shared: Arc<Shared>,
     health: Arc<Health>,
     /// Files already settled, by (model, kind, path), with the size and mtime they had:
     /// unchanged files are not read again on every rescan. Keyed by model and kind too, since
@@ -273,8 +272,10 @@ impl Pipeline {
     }
 
     /// One pass over every input folder. A commit the database refuses (disk full, read-only)
-    /// ends the round: the daemon turns not ready, counts it, logs it once, keeps its committed
-    /// state, and retries the same file on the next round until the volume accepts writes.
+    /// ends the round: the daemon counts it, raises `riskbound_state_unwritable`, logs it once,
+    /// keeps serving its committed state, and retries the same file on the next round until the
+    /// volume accepts writes. Readiness does not change: it is the model's pod that a readiness
+    /// failure takes out of its Service, and the model is not at fault.
     fn round(&mut self, stop: &AtomicBool) -> anyhow::Result<bool> {
         let mut changed = false;
         // A long backlog (a restart after an outage) is published as it is worked through,
@@ -296,8 +297,7 @@ impl Pipeline {
                         changed = false;
                     }
                     if took && self.health.state_unwritable.swap(false, Ordering::SeqCst) {
-                        self.shared.ready.store(true, Ordering::SeqCst);
-                        tracing::info!("state database accepts writes again; ready, resuming ingest");
+                        tracing::info!("state database accepts writes again; resuming ingest");
                     }
                 }
                 Err(e) => {
@@ -305,10 +305,9 @@ impl Pipeline {
                     self.needs_reopen |= store_error.needs_reopen();
                     self.health.state_write_failures.fetch_add(1, Ordering::SeqCst);
                     if !self.health.state_unwritable.swap(true, Ordering::SeqCst) {
-                        self.shared.ready.store(false, Ordering::SeqCst);
                         let what =
                             if store_error.is_disk() { "state volume refuses writes" } else { "state database error" };
-                        tracing::error!(file = %c.path.display(), error = %store_error, "{what}: not ready; committed state kept, retrying");
+                        tracing::error!(file = %c.path.display(), error = %store_error, "{what}: committed state kept and served, retrying");
                     }
                     complete = false;
                     break;
@@ -327,14 +326,13 @@ impl Pipeline {
     /// Opens the state for writing again after the volume refused it. Returns false while it
     /// still refuses (counted, not logged again: the first refusal was).
     fn reopen(&mut self) -> anyhow::Result<bool> {
-        match Store::open(&self.config.state_dir) {
+        match Store::open(&self.config.state_dir).and_then(|s| limit(s, self.config.state_max_bytes)) {
             Ok(store) => {
                 self.store = store;
                 self.needs_reopen = false;
                 self.settle_taken()?;
                 if self.health.state_unwritable.swap(false, Ordering::SeqCst) {
-                    self.shared.ready.store(true, Ordering::SeqCst);
-                    tracing::info!("state database accepts writes again; ready, resuming ingest");
+                    tracing::info!("state database accepts writes again; resuming ingest");
                 }
                 Ok(true)
             }
@@ -434,9 +432,9 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     tracing::info!(%addr, scheme, basic_auth = !config.web.users.is_empty(), "serving /metrics, /healthz, /readyz");
 
     // A volume that refuses writes (read-only, full, failing) does not stop the daemon: it
-    // serves the committed state read-only, not ready, and opens the state for writing as soon
-    // as the volume lets it. Any other failure (a damaged database) is fatal.
-    let (store, writable) = match Store::open(&config.state_dir) {
+    // serves the committed state read-only and opens the state for writing as soon as the
+    // volume lets it. Any other failure (a damaged database) is fatal.
+    let (store, writable) = match Store::open(&config.state_dir).and_then(|s| limit(s, config.state_max_bytes)) {
         Ok(store) => (store, true),
         Err(e) if e.is_disk() => {
             health.state_write_failures.fetch_add(1, Ordering::SeqCst);
@@ -444,7 +442,7 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
             tracing::error!(
                 state = %config.state_dir.display(),
                 error = %e,
-                "state volume refuses writes: not ready; committed state served read-only, retrying"
+                "state volume refuses writes: committed state served read-only, retrying"
             );
             let view = Store::open_read_only(&config.state_dir);
             (view.map_or_else(Store::open_in_memory, Ok)?, false)
@@ -455,7 +453,6 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         config: config.clone(),
         store,
         snapshot: snapshot.clone(),
-        shared: shared.clone(),
         health,
         settled: HashMap::new(),
         rounds_begun: 0,
@@ -463,13 +460,13 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         needs_reopen: !writable,
     };
     // Resume: the snapshot of the committed state is published before anything new is read,
-    // and only then is the daemon ready.
+    // and only then is the daemon ready. Ready is a latch: it never turns back, whatever the
+    // state volume does later (its trouble shows in riskbound_state_unwritable and the page
+    // alert), because a sidecar that is not ready takes its model's pod out of the Service.
     pipeline.settle_taken()?;
     pipeline.publish()?;
-    if writable {
-        shared.ready.store(true, Ordering::SeqCst);
-        tracing::info!(state = %config.state_dir.display(), "state resumed; ready");
-    }
+    shared.ready.store(true, Ordering::SeqCst);
+    tracing::info!(state = %config.state_dir.display(), writable, "state resumed; ready");
 
     let (wake_tx, wake_rx) = mpsc::channel();
     let stop = Arc::new(AtomicBool::new(false));
@@ -565,4 +562,12 @@ impl Running {
         }
         true
     }
+}
+
+/// Applies `state_max_size` to a store just opened for writing.
+fn limit(store: Store, bytes: Option<u64>) -> Result<Store, StoreError> {
+    if let Some(b) = bytes {
+        store.limit_size(b)?;
+    }
+    Ok(store)
 }

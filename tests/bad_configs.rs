@@ -138,6 +138,8 @@ const CASES: &[(&str, &str, &str, u64, &str)] = &[
     ("listen not an address", "listen: \"127.0.0.1:", "listen: \"localhost:", 1, "listen"),
     ("rescan without unit", "rescan_interval: 30s", "rescan_interval: 30", 3, "rescan_interval"),
     ("max_row_bytes too small", "max_row_bytes: 1048576", "max_row_bytes: 10", 4, "max_row_bytes"),
+    ("state_max_size too small", "state_dir: state\n", "state_dir: state\nstate_max_size: 1MiB\n", 3, "state_max_size"),
+    ("state_max_size not a size", "state_dir: state\n", "state_dir: state\nstate_max_size: lots\n", 3, "state_max_size"),
     ("max_samples too small", "    label_wait: 7d\n", "    label_wait: 7d\n    max_samples: 50\n", 19, "models[0].max_samples"),
     (
         "max_samples below the slice search's minimum",

@@ -2,7 +2,7 @@
 # The deployment files through the real tools: promtool check config on the Prometheus
 # configuration (with rules generated from the Kubernetes config map's daemon config), amtool
 # check-config on the Alertmanager routing, and systemd-analyze verify on the unit, failing on
-# any warning. Run by .ci/run.
+# any warning; kubernetes-validate on the manifests. Run by .ci/run.
 set -euo pipefail
 bin=$(realpath "${1:-target/release/riskbound}")
 here=$(cd "$(dirname "$0")/.." && pwd)
@@ -38,4 +38,8 @@ else
   echo "systemd-analyze is not installed here: the unit was not verified" >&2
   exit 1
 fi
+# The manifests against the Kubernetes API schemas (kubernetes-validate, pinned in
+# tests/reference/requirements.txt), strictly: an unknown or misplaced field fails.
+kubernetes-validate --strict --quiet "$here"/deploy/kubernetes/*.yaml
+echo "kubernetes-validate: clean"
 echo "deploy check: ok"

@@ -67,7 +67,26 @@ fn configmap_config(dir: &TempDir) -> (String, PathBuf) {
 
 #[test]
 fn kubernetes_sidecar_names_what_exists() {
-    let dep = &yaml("deploy/kubernetes/deployment.yaml")[0];
+    for file in ["deploy/kubernetes/deployment.yaml", "deploy/kubernetes/statefulset.yaml"] {
+        sidecar_names_what_exists(file);
+    }
+}
+
+/// Converts a Kubernetes quantity such as `2Gi` or `1536Mi` to bytes.
+fn quantity(q: &str) -> u64 {
+    let (num, unit) = q.split_at(q.find(|c: char| !c.is_ascii_digit()).unwrap_or(q.len()));
+    let scale = match unit {
+        "" => 1,
+        "Ki" => 1 << 10,
+        "Mi" => 1 << 20,
+        "Gi" => 1 << 30,
+        other => panic!("unit {other} in {q}"),
+    };
+    num.parse::<u64>().unwrap() * scale
+}
+
+fn sidecar_names_what_exists(file: &str) {
+    let dep = &yaml(file)[0];
     let spec = &dep["spec"]["template"]["spec"];
     let c = spec["containers"]
         .as_array()
@@ -76,7 +95,7 @@ fn kubernetes_sidecar_names_what_exists() {
         .find(|c| c["name"] == "riskbound")
         .expect("a riskbound container");
     let args: Vec<String> = c["args"].as_array().unwrap().iter().map(|a| a.as_str().unwrap().to_string()).collect();
-    let config_path = check_args(&args, "deployment.yaml");
+    let config_path = check_args(&args, file);
 
     // The config comes from the config map, mounted where --config points.
     let mounts = c["volumeMounts"].as_array().unwrap();
@@ -87,9 +106,19 @@ fn kubernetes_sidecar_names_what_exists() {
     let cm_volume = volumes.iter().find(|v| v["name"] == "config").unwrap();
     let cm = &yaml("deploy/kubernetes/configmap.yaml")[0];
     assert_eq!(cm_volume["configMap"]["name"], cm["metadata"]["name"]);
-    let pvc = &yaml("deploy/kubernetes/pvc.yaml")[0];
-    let state_volume = volumes.iter().find(|v| v["name"] == "state").unwrap();
-    assert_eq!(state_volume["persistentVolumeClaim"]["claimName"], pvc["metadata"]["name"]);
+    // Each pod has its own state: an emptyDir with a sizeLimit, or a claim per replica.
+    let state_size = match volumes.iter().find(|v| v["name"] == "state") {
+        Some(v) => quantity(v["emptyDir"]["sizeLimit"].as_str().expect("the state emptyDir has a sizeLimit")),
+        None => {
+            let t = dep["spec"]["volumeClaimTemplates"].as_array().expect("a state claim per replica");
+            let claim = t.iter().find(|c| c["metadata"]["name"] == "state").unwrap();
+            quantity(claim["spec"]["resources"]["requests"]["storage"].as_str().unwrap())
+        }
+    };
+    // Several replicas, rolled one at a time without taking the model down.
+    assert!(dep["spec"]["replicas"].as_u64().unwrap() > 1, "{file}: more than one replica");
+    let rolling = if dep["kind"] == "Deployment" { &dep["spec"]["strategy"] } else { &dep["spec"]["updateStrategy"] };
+    assert_eq!(rolling["type"], "RollingUpdate", "{file}");
 
     // The config validates, and its paths are the mounts: spool read-only, state writable.
     let dir = TempDir::new("deploy-k8s");
@@ -106,6 +135,11 @@ fn kubernetes_sidecar_names_what_exists() {
     let state_line = text.lines().find(|l| l.trim_start().starts_with("state_dir:")).unwrap();
     assert_eq!(state_line.split(':').nth(1).unwrap().trim(), mount("state")["mountPath"].as_str().unwrap());
     assert_ne!(mount("state")["readOnly"], true);
+    // The state is capped below its volume, so it pauses ingest instead of filling the volume
+    // (an emptyDir past its sizeLimit gets the whole pod evicted). The WAL adds up to ~4 MiB.
+    let cap_line = text.lines().find(|l| l.trim_start().starts_with("state_max_size:")).expect("state_max_size set");
+    let cap = quantity(cap_line.split(':').nth(1).unwrap().trim());
+    assert!(cap + (8 << 20) <= state_size, "{file}: state_max_size {cap} leaves no room below {state_size}");
 
     // The port is the config's listen port, and the probes answer on a running daemon.
     let listen = text.lines().find(|l| l.trim_start().starts_with("listen:")).unwrap();
@@ -118,7 +152,12 @@ fn kubernetes_sidecar_names_what_exists() {
         std::fs::read_to_string(&moved).unwrap().replace(&format!("0.0.0.0:{port}"), &format!("127.0.0.1:{local}"));
     std::fs::write(&moved, live).unwrap();
     let daemon = Daemon::start(&moved, local);
-    for probe in ["livenessProbe", "readinessProbe"] {
+    // Do no harm: no readiness probe (the pod's readiness is the model's), a startup probe
+    // that answers before the state is resumed, and liveness.
+    assert!(c["readinessProbe"].is_null(), "{file}: riskbound must not gate the pod's readiness");
+    let model = spec["containers"].as_array().unwrap().iter().find(|c| c["name"] != "riskbound").unwrap();
+    assert!(model["readinessProbe"].is_null() || model["readinessProbe"]["httpGet"]["port"] != port_name);
+    for probe in ["startupProbe", "livenessProbe"] {
         let get = &c[probe]["httpGet"];
         assert_eq!(get["port"], port_name, "{probe} uses the named port");
         let (status, _) = daemon.get(get["path"].as_str().unwrap()).unwrap();

@@ -1,6 +1,8 @@
-//! The state volume full (ENOSPC) or read-only: the daemon turns not ready, counts it in
-//! `riskbound_state_write_failures_total`, logs one clear line, keeps its committed state, and
-//! resumes by itself once it can write again, with no loss. The volumes are mounted for the
+//! The state volume full (ENOSPC) or read-only: the daemon counts it in
+//! `riskbound_state_write_failures_total`, raises `riskbound_state_unwritable`, logs one clear
+//! line, keeps serving its committed state, and resumes by itself once it can write again, with
+//! no loss. It stays ready throughout: readiness is per pod, and a sidecar that turned not ready
+//! would take the model it watches out of its Service for a disk the model does not use. The volumes are mounted for the
 //! test (CI runs as root): a small tmpfs, and an ext4 image on a loop device.
 //!
 //! Read-only comes two ways. A volume read-only when the daemon starts (a restart onto a
@@ -121,14 +123,18 @@ fn ready(d: &Daemon) -> u16 {
     d.get("/readyz").map(|r| r.0).unwrap_or(0)
 }
 
+fn unwritable(d: &Daemon) -> bool {
+    d.metrics().get("riskbound_state_unwritable", &[]) == Some(1.0)
+}
+
 fn rows(d: &Daemon) -> f64 {
     d.metrics().get("riskbound_rows_ingested_total", &[("model", "disk"), ("kind", "prediction")]).unwrap()
 }
 
-/// The daemon while its volume refuses writes: not ready, the failure counted and logged once,
-/// the `committed` rows served.
+/// The daemon while its volume refuses writes: still ready, the failure counted and logged
+/// once, the `committed` rows served.
 fn refusing_writes(d: &Daemon, committed: f64) {
-    assert_eq!(ready(d), 503, "not ready while the state cannot be written");
+    assert_eq!(ready(d), 200, "ready whatever the state volume does: the model's pod stays in its Service");
     let m = d.metrics();
     assert!(m.get("riskbound_state_write_failures_total", &[]).unwrap() >= 1.0);
     assert_eq!(m.get("riskbound_state_unwritable", &[]), Some(1.0));
@@ -137,14 +143,15 @@ fn refusing_writes(d: &Daemon, committed: f64) {
     assert_eq!(log.matches("state volume refuses writes").count(), 1, "one clear line, not one per retry:\n{log}");
 }
 
-/// The daemon once the volume accepts writes again: ready by itself, with `files` files and
+/// The daemon once the volume accepts writes again: writing by itself, with `files` files and
 /// `total` rows taken, each once.
 fn writing_again(d: &Daemon, files: f64, total: f64) {
     let deadline = std::time::Instant::now() + Duration::from_secs(20);
-    while ready(d) != 200 {
-        assert!(std::time::Instant::now() < deadline, "not ready again:\n{}", d.log_text());
+    while unwritable(d) {
+        assert!(std::time::Instant::now() < deadline, "not writing again:\n{}", d.log_text());
         std::thread::sleep(Duration::from_millis(50));
     }
+    assert_eq!(ready(d), 200);
     d.wait_files("disk", "prediction", files);
     assert_eq!(rows(d), total, "every row once");
     assert_eq!(d.metrics().get("riskbound_state_unwritable", &[]), Some(0.0));
@@ -154,7 +161,7 @@ fn writing_again(d: &Daemon, files: f64, total: f64) {
 }
 
 #[test]
-fn a_full_volume_makes_the_daemon_not_ready_until_space_is_back() {
+fn a_full_volume_pauses_ingest_until_space_is_back_and_the_daemon_stays_ready() {
     let dir = TempDir::new("enospc");
     let mount = Mount::tmpfs(&dir.path("state"), "8m");
     let port = common::free_port();
@@ -165,7 +172,7 @@ fn a_full_volume_makes_the_daemon_not_ready_until_space_is_back() {
     let filler = dir.path("state/filler");
     let _ = Command::new("dd").args(["if=/dev/zero", &format!("of={}", filler.display()), "bs=64k"]).output();
     dir.drop_file("pred-0002.csv", &batch(100, 20_100));
-    d.wait_until(Duration::from_secs(20), |d| ready(d) == 503);
+    d.wait_until(Duration::from_secs(20), unwritable);
     refusing_writes(&d, 100.0);
     // Space is back: the daemon resumes by itself.
     std::fs::remove_file(&filler).unwrap();
@@ -210,7 +217,7 @@ fn a_volume_failing_read_only_under_the_daemon_is_left_for_its_new_mount() {
     d.wait_files("disk", "prediction", 1.0);
     volume.fail();
     dir.drop_file("pred-0002.csv", &batch(100, 300));
-    d.wait_until(Duration::from_secs(20), |d| ready(d) == 503);
+    d.wait_until(Duration::from_secs(20), unwritable);
     refusing_writes(&d, 100.0);
     std::thread::sleep(Duration::from_millis(1500)); // a few retries
     assert_eq!(rows(&d), 100.0, "nothing taken while the state cannot record it");
@@ -227,4 +234,31 @@ fn a_volume_failing_read_only_under_the_daemon_is_left_for_its_new_mount() {
     );
     drop(d);
     drop(volume);
+}
+
+/// `state_max_size` caps the database below an emptyDir's sizeLimit (past which the kubelet
+/// would evict the whole pod, model and all): a file that would grow the state beyond it is
+/// refused as on a full disk, the daemon stays ready and serves what it has, and with a larger
+/// cap after a restart the file is taken.
+#[test]
+fn the_state_size_cap_pauses_ingest_before_the_volume_fills() {
+    let dir = TempDir::new("statecap");
+    let port = common::free_port();
+    let windows = "[ { name: all, last: 1000000 } ]";
+    let capped = |size: &str| {
+        let top = format!("rescan_interval: 200ms\nstate_max_size: {size}");
+        common::simple_config(&dir, port, &top, "disk", "", windows)
+    };
+    let d = Daemon::start(&capped("16MiB"), port);
+    dir.drop_file("pred-0001.csv", &batch(0, 100));
+    d.wait_files("disk", "prediction", 1.0);
+    dir.drop_file("pred-0002.csv", &batch(100, 200_100));
+    d.wait_until(Duration::from_secs(30), unwritable);
+    refusing_writes(&d, 100.0);
+    let db = std::fs::metadata(dir.path("state/riskbound.sqlite")).unwrap().len();
+    assert!(db <= 16 << 20, "the database stays within the cap: {db} bytes");
+    assert!(d.terminate().success());
+    let d = Daemon::start(&capped("256MiB"), port);
+    d.wait_files("disk", "prediction", 2.0);
+    assert_eq!(rows(&d), 200_100.0, "every row once");
 }

@@ -297,7 +297,7 @@ pub fn render(config: &Config, job: &str) -> String {
         for_: Some("5m"),
         severity: "page",
         summary: "riskbound cannot write its state database (disk full or read-only)".into(),
-        description: "Ingest has stopped and the daemon reports not ready; committed state is kept and ingest resumes by itself once the volume accepts writes.".into(),
+        description: "Ingest has stopped (the daemon stays ready, so the model's pod keeps serving); committed state is kept and served, and ingest resumes by itself once the volume accepts writes, or the state is below state_max_size again.".into(),
     });
     // Common practice: act at 90% of a memory limit, before the kernel's OOM killer does.
     write_rule(&mut out, &Rule {

@@ -24,6 +24,10 @@ impl Config {
             Some(b) => format!("memory_limit: {b} bytes\n"),
             None => "memory_limit: from the cgroup at start-up, if any\n".to_string(),
         };
+        s += &match self.state_max_bytes {
+            Some(b) => format!("state_max_size: {b} bytes (ingest pauses beyond it)\n"),
+            None => "state_max_size: none (the volume's size is the limit)\n".to_string(),
+        };
         s += &format!(
             "web: {}, basic auth {}\n",
             if self.web.tls.is_some() { "TLS" } else { "plain HTTP" },

@@ -182,6 +182,19 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
     let http = http_limits(&mut c, &raw);
     let memory_limit_bytes =
         raw.memory_limit.as_ref().and_then(|m| parse_bytes(&m.value).map_err(|e| c.push(m, "memory_limit", e)).ok());
+    let state_max_bytes = raw
+        .state_max_size
+        .as_ref()
+        .and_then(|m| parse_bytes(&m.value).map_err(|e| c.push(m, "state_max_size", e)).ok())
+        .and_then(|b| {
+            if b < MIN_STATE_BYTES {
+                let m = raw.state_max_size.as_ref().expect("parsed above");
+                c.push(m, "state_max_size", format!("must be at least {} MiB, got {b} bytes", MIN_STATE_BYTES >> 20));
+                None
+            } else {
+                Some(b)
+            }
+        });
     let future_tolerance_ms = match &raw.future_tolerance {
         None => 86_400_000,
         Some(f) => c.duration_ms(f, "future_tolerance").unwrap_or(86_400_000),
@@ -212,6 +225,7 @@ pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
         shutdown_grace_period,
         http,
         memory_limit_bytes,
+        state_max_bytes,
         models,
         web: web::WebConfig::plain(),
     })

@@ -18,6 +18,7 @@ pub(super) struct RawConfig {
     pub(super) connection_lifetime: Option<Spanned<String>>,
     pub(super) max_header_bytes: Option<Spanned<i64>>,
     pub(super) memory_limit: Option<Spanned<String>>,
+    pub(super) state_max_size: Option<Spanned<String>>,
     pub(super) models: Spanned<Vec<RawModel>>,
 }
 

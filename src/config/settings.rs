@@ -21,6 +21,10 @@ pub struct Config {
     /// The container's memory limit, for the memory ticket rule: `memory_limit` if set, else
     /// read from the cgroup at start-up (None when unlimited or unknown).
     pub memory_limit_bytes: Option<u64>,
+    /// The most the state database may grow to (`state_max_size`): beyond it commits are
+    /// refused as on a full disk, so riskbound pauses its ingest before an emptyDir's sizeLimit
+    /// would make the kubelet evict the whole pod, model and all.
+    pub state_max_bytes: Option<u64>,
     pub models: Vec<ModelConfig>,
     /// TLS and basic auth of the HTTP surface (from `--web-config`; plain HTTP by default).
     pub web: super::web::WebConfig,
@@ -50,6 +54,9 @@ pub struct ModelConfig {
     /// the slice search) read: a seeded uniform subsample above it.
     pub max_samples: u64,
 }
+
+/// The least `state_max_size`: the schema and one batch file's transaction need room.
+pub const MIN_STATE_BYTES: u64 = 16 << 20;
 
 /// The default of `max_samples`: betting and the slice search on 20 000 samples take tens of
 /// milliseconds a round, and their bounds are within a few 1/√20 000 ≈ 0.007 of the mean.

@@ -518,7 +518,7 @@ impl Collector for SnapshotCollector {
         gauges(
             e,
             names::UNWRITABLE,
-            "1 while the state database refuses commits (the daemon is then not ready), else 0",
+            "1 while the state database refuses commits (ingest waits and the committed state is served; readiness is not affected), else 0",
             [(Labels::new(), f64::from(u8::from(self.health.state_unwritable.load(SeqCst))))],
         )?;
         self.encode_footprint(e)

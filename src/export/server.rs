@@ -1,6 +1,6 @@
 //! The HTTP surface: GET /metrics (Prometheus text format 0.0.4), GET /healthz (the process
-//! runs), GET /readyz (state resumed from the database and the state volume writable; 503
-//! otherwise). Every other path is 404, and other methods on these paths 405.
+//! runs), GET /readyz (200 once the committed state has been resumed and published, and from
+//! then on for good; 503 before). Every other path is 404, and other methods on these paths 405.
 //!
 //! With a web config (export/web.rs), connections are TLS and every request but the probes
 //! needs basic-auth credentials.

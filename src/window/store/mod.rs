@@ -178,6 +178,18 @@ impl Store {
         Ok(Store { conn, ranges: Default::default() })
     }
 
+    /// Caps the database at `bytes` (`PRAGMA max_page_count`): a commit that would grow it
+    /// further fails as on a full disk (`SQLITE_FULL`), which the daemon already handles by
+    /// pausing its ingest and retrying. The write-ahead log is checkpointed back into the
+    /// database at about 4 MiB, so the files on disk stay within `bytes` plus that.
+    pub fn limit_size(&self, bytes: u64) -> Result<(), StoreError> {
+        let page: i64 = self.conn.query_row("PRAGMA page_size", [], |r| r.get(0))?;
+        let pages = (bytes / page.max(512) as u64).max(1) as i64;
+        // max_page_count never goes below the current size; the smaller of the two stands.
+        self.conn.query_row(&format!("PRAGMA max_page_count = {pages}"), [], |r| r.get::<_, i64>(0))?;
+        Ok(())
+    }
+
     /// The committed state of `dir`, for reading only: what /metrics shows while the volume
     /// refuses writes. A database left by a clean stop has no WAL file, and one cannot be
     /// created on a read-only volume, so that case is opened immutable (no other process can
