@@ -159,20 +159,7 @@ impl Checker {
             },
         };
 
-        let least = if slices.is_some() { MIN_SLICE_SAMPLES } else { MIN_MAX_SAMPLES };
-        let max_samples = match &raw.max_samples {
-            None => DEFAULT_MAX_SAMPLES,
-            Some(v) if v.value >= least as i64 => v.value as u64,
-            Some(v) => {
-                let why = if slices.is_some() {
-                    format!("must be at least {least} with a slice search (it discovers on half the samples and confirms on the other half), got {}", v.value)
-                } else {
-                    format!("must be at least {least}, got {}", v.value)
-                };
-                self.push(v, &format!("{k}.max_samples"), why);
-                DEFAULT_MAX_SAMPLES
-            }
-        };
+        let max_samples = self.max_samples(raw.max_samples.as_ref(), slices.is_some(), &k);
 
         if self.issues.len() > start {
             return None;
@@ -192,5 +179,25 @@ impl Checker {
             slices,
             max_samples,
         })
+    }
+}
+
+impl Checker {
+    /// `max_samples` of model `k`: at least the slice search's minimum when it has one.
+    fn max_samples(&mut self, v: Option<&Spanned<i64>>, has_slices: bool, k: &str) -> u64 {
+        let least = if has_slices { MIN_SLICE_SAMPLES } else { MIN_MAX_SAMPLES };
+        match v {
+            None => DEFAULT_MAX_SAMPLES,
+            Some(v) if v.value >= least as i64 => v.value as u64,
+            Some(v) => {
+                let why = if has_slices {
+                    format!("must be at least {least} with a slice search (it discovers on half the samples and confirms on the other half), got {}", v.value)
+                } else {
+                    format!("must be at least {least}, got {}", v.value)
+                };
+                self.push(v, &format!("{k}.max_samples"), why);
+                DEFAULT_MAX_SAMPLES
+            }
+        }
     }
 }

@@ -240,6 +240,11 @@ fn encode_bounds(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::
                     .chain(std::iter::once((mw(&m.name, SINCE_RESET), (m.anytime.n - m.anytime.labelled) as f64)))
             }),
         )?;
+    encode_samples_used(snap, e)
+}
+
+/// The samples each method read per window: all of them, or the subsample.
+fn encode_samples_used(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::fmt::Error> {
     let mut used = Vec::new();
     for m in &snap.models {
         for w in &m.windows {

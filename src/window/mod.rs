@@ -151,6 +151,24 @@ pub fn cohort_bounds(cohort: &Cohort, model: &ModelConfig, confidence: Confidenc
     out
 }
 
+/// A cohort's snapshot: its counts and (unless the δ budget is spent out) its bounds.
+fn cohort_snapshot(
+    range: CohortRange,
+    c: &Cohort,
+    model: &ModelConfig,
+    confidence: Confidence,
+    spent_out: bool,
+) -> CohortSnapshot {
+    let bounds = if spent_out { Vec::new() } else { cohort_bounds(c, model, confidence) };
+    CohortSnapshot {
+        range,
+        predictions: c.n(),
+        unlabelled: c.unknown(),
+        used: bounds.iter().map(|(m, _)| (*m, c.used_by(*m))).collect(),
+        bounds,
+    }
+}
+
 /// One exported slice, in loss units.
 #[derive(Clone, Debug, PartialEq)]
 pub struct SliceLine {
@@ -332,16 +350,7 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
         let mut bounds = summary_bounds(&summary, model, window_confidence);
         let mut used: Vec<(Method, u64)> = bounds.iter().map(|(m, _)| (*m, summary.used_by(*m))).collect();
         let rows = view.sample;
-        let cohort = view.cohort.map(|(range, c)| {
-            let bounds = if spent_out { Vec::new() } else { cohort_bounds(&c, model, window_confidence) };
-            CohortSnapshot {
-                range,
-                predictions: c.n(),
-                unlabelled: c.unknown(),
-                used: bounds.iter().map(|(m, _)| (*m, c.used_by(*m))).collect(),
-                bounds,
-            }
-        });
+        let cohort = view.cohort.map(|(range, c)| cohort_snapshot(range, &c, model, window_confidence, spent_out));
         if spent_out {
             bounds.clear();
             used.clear();

@@ -100,11 +100,7 @@ impl Store {
             .query_row("SELECT counted_from FROM model_meta WHERE model = ?1", [m], |r| r.get::<_, Option<i64>>(0))
             .optional()?
             .flatten();
-        let mut all: Vec<((i64, i64), f64)> = Vec::new();
-        let mut st = self.conn.prepare("SELECT t_pred, seq, loss FROM sample WHERE model = ?1 ORDER BY t_pred, seq")?;
-        for row in st.query_map([m], |r| Ok(((r.get(0)?, r.get(1)?), r.get(2)?)))? {
-            all.push(row?);
-        }
+        let all = self.all_samples(m)?;
         let stats_of = |rows: &mut dyn Iterator<Item = &((i64, i64), f64)>| {
             let mut s = LossStats::default();
             rows.for_each(|(_, l)| s.push(*l, b));
@@ -157,11 +153,7 @@ impl Store {
     /// The losses of a non-mature window computed from every stored row, in arrival order
     /// (the full-data path, O(window); for tests and checks).
     pub fn window_losses(&self, model: &str, kind: WindowKind) -> Result<Vec<f64>, StoreError> {
-        let mut all: Vec<((i64, i64), f64)> = Vec::new();
-        let mut st = self.conn.prepare("SELECT t_pred, seq, loss FROM sample WHERE model = ?1 ORDER BY t_pred, seq")?;
-        for row in st.query_map([model], |r| Ok(((r.get(0)?, r.get(1)?), r.get(2)?)))? {
-            all.push(row?);
-        }
+        let all = self.all_samples(model)?;
         let mut picked: Vec<((i64, i64), f64)> = match (kind, all.last()) {
             (_, None) => Vec::new(),
             (WindowKind::Last(n), Some(_)) => {
@@ -173,6 +165,13 @@ impl Store {
         };
         picked.sort_unstable_by_key(|((_, seq), _)| *seq);
         Ok(picked.into_iter().map(|(_, l)| l).collect())
+    }
+
+    /// Every stored sample of a model as (key, loss), in key order (the full-data path).
+    fn all_samples(&self, m: &str) -> Result<Vec<(Key, f64)>, StoreError> {
+        let mut st = self.conn.prepare("SELECT t_pred, seq, loss FROM sample WHERE model = ?1 ORDER BY t_pred, seq")?;
+        let rows = st.query_map([m], |r| Ok(((r.get(0)?, r.get(1)?), r.get(2)?)))?;
+        Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
 
     /// The loss and label delay of the newest `limit` labelled samples by prediction time (a
