@@ -36,7 +36,7 @@ pub struct Running {
     server_stop: Arc<tokio::sync::Notify>,
     pipeline: Option<std::thread::JoinHandle<anyhow::Result<()>>>,
     runtime: tokio::runtime::Runtime,
-    server: Option<tokio::task::JoinHandle<std::io::Result<()>>>,
+    server: Option<tokio::task::JoinHandle<()>>,
     /// Rounds completed by the pipeline (a round lists every directory once).
     pub rounds: Arc<std::sync::atomic::AtomicU64>,
     grace: Duration,
@@ -416,19 +416,16 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         ready: AtomicBool::new(false),
     });
     let server_stop = Arc::new(tokio::sync::Notify::new());
-    let stop_signal = server_stop.clone();
-    let mut app = server::router(shared.clone());
-    if !config.web.users.is_empty() {
-        app = app.layer(axum::middleware::from_fn_with_state(config.web.clone(), crate::export::web::require_auth));
-    }
-    let tls = config.web.tls.clone();
-    let scheme = if tls.is_some() { "https" } else { "http" };
-    let limits = config.http;
-    let listener_stats = listener_stats.clone();
-    let server = runtime.spawn(async move {
-        server::serve(listener, app, limits, stop_signal, tls, listener_stats).await;
-        Ok(())
-    });
+    let scheme = if config.web.tls.is_some() { "https" } else { "http" };
+    let server = server::spawn(
+        &runtime,
+        listener,
+        shared.clone(),
+        &config.web,
+        config.http,
+        listener_stats.clone(),
+        server_stop.clone(),
+    );
     tracing::info!(%addr, scheme, basic_auth = !config.web.users.is_empty(), "serving /metrics, /healthz, /readyz");
 
     // A volume that refuses writes (read-only, full, failing) does not stop the daemon: it

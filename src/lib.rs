@@ -8,6 +8,9 @@
 //! - [`estimate`]: losses → lower and upper confidence bounds on the mean (pure functions);
 //! - [`export`]: the latest snapshot as Prometheus metrics over HTTP.
 //!
+//! [`fleet`] is the fleet view's own path: every replica's series read back through the
+//! Prometheus HTTP API, pooled per model and window, exported again.
+//!
 //! [`config`] parses and validates the daemon's YAML; [`app`] wires the stages; [`cmd`] holds
 //! the command-line modes.
 
@@ -16,6 +19,7 @@ pub mod cmd;
 pub mod config;
 pub mod estimate;
 pub mod export;
+pub mod fleet;
 pub mod ingest;
 pub mod loss;
 pub mod window;

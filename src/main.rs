@@ -19,6 +19,7 @@ fn main() -> ExitCode {
         Command::Rules(a) => cmd::rules::main(a),
         Command::HashPassword(a) => cmd::hash_password::main(a),
         Command::CheckConfig(a) => cmd::check_config::main(a),
+        Command::Fleet(a) => cmd::fleet::main(a),
         Command::Demo(a) => cmd::demo::main(a),
     };
     match result {

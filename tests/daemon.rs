@@ -355,6 +355,13 @@ fn two_models_on_one_folder_each_take_every_file_once() {
             let w = [("model", name), ("window", "all")];
             assert_eq!(m.get("riskbound_window_samples", &w), Some(100.0), "{name}");
             assert_eq!(m.get("riskbound_window_total_loss", &w), Some(WRONG.len() as f64), "{name}");
+            // What the fleet view pools: for 0-1 losses the squares are the errors again, and
+            // every prediction of the cohort has its label.
+            let k = Some(WRONG.len() as f64);
+            assert_eq!(m.get("riskbound_window_total_squared_loss", &w), k, "{name}");
+            assert_eq!(m.get("riskbound_window_cohort_total_loss", &w), k, "{name}");
+            assert_eq!(m.get("riskbound_window_cohort_total_squared_loss", &w), k, "{name}");
+            assert_eq!(m.get("riskbound_loss_max", &[("model", name), ("loss", "zero-one")]), Some(1.0));
             assert_eq!(
                 m.get("riskbound_files_ingested_total", &[("model", name), ("kind", "prediction")]),
                 Some(pred_files)

@@ -19,7 +19,7 @@ for d in re.findall(r"dir: (\S+)", cfg):
     os.makedirs(d, exist_ok=True)
 open(os.path.join(sys.argv[2], "riskbound.yaml"), "w").write(cfg + "\n")
 PY
-"$bin" rules --config "$work/riskbound.yaml" > "$work/riskbound-rules.yaml"
+"$bin" rules --config "$work/riskbound.yaml" --fleet-job riskbound-fleet > "$work/riskbound-rules.yaml"
 cp "$here/deploy/prometheus/prometheus.yml" "$work/"
 promtool check config "$work/prometheus.yml"
 amtool check-config "$here/deploy/prometheus/alertmanager.yml"

@@ -180,6 +180,95 @@ fn sidecar_names_what_exists(file: &str) {
     assert_eq!(keep("__meta_kubernetes_pod_container_name"), "riskbound");
 }
 
+/// The fleet view's Deployment: `riskbound fleet` with flags it has, the sidecars' config map
+/// (read without its directories), the sidecars' scrape job, a port its scrape job keeps, and
+/// probes that answer on a running fleet view.
+#[test]
+fn kubernetes_fleet_view_names_what_exists() {
+    let file = "deploy/kubernetes/fleet.yaml";
+    let dep = &yaml(file)[0];
+    let spec = &dep["spec"]["template"]["spec"];
+    let c = &spec["containers"][0];
+    let args: Vec<String> = c["args"].as_array().unwrap().iter().map(|a| a.as_str().unwrap().to_string()).collect();
+    assert_eq!(args[0], "fleet");
+    let out = Command::new(bin()).args(["fleet", "--help"]).output().unwrap();
+    let help = String::from_utf8(out.stdout).unwrap();
+    let value = |flag: &str| args.iter().position(|a| a == flag).map(|i| args[i + 1].clone());
+    for a in args.iter().filter(|a| a.starts_with("--")) {
+        assert!(help.contains(&format!("{a} ")), "{file}: {a} is not a flag of riskbound fleet");
+    }
+    // The sidecars' config map, mounted where --config points.
+    let mount = &c["volumeMounts"][0];
+    assert_eq!(format!("{}/riskbound.yaml", mount["mountPath"].as_str().unwrap()), value("--config").unwrap());
+    let cm = &yaml("deploy/kubernetes/configmap.yaml")[0];
+    assert_eq!(spec["volumes"][0]["configMap"]["name"], cm["metadata"]["name"]);
+    // --job is the sidecars' scrape job; the fleet view's own job keeps its port.
+    let scrape = &yaml("deploy/prometheus/kubernetes-scrape.yaml")[0];
+    let jobs = scrape["scrape_configs"].as_array().unwrap();
+    assert_eq!(jobs[0]["job_name"].as_str(), value("--job").as_deref());
+    let fleet_job = jobs.iter().find(|j| j["job_name"] == "riskbound-fleet").expect("a scrape job for the fleet view");
+    let relabel = fleet_job["relabel_configs"].as_array().unwrap();
+    let keep = |label: &str| relabel.iter().find(|r| r["source_labels"][0] == label).unwrap()["regex"].clone();
+    let port = &c["ports"][0];
+    assert_eq!(keep("__meta_kubernetes_pod_container_port_name"), port["name"]);
+    assert_eq!(keep("__meta_kubernetes_pod_container_name"), c["name"]);
+    let listen = value("--listen").unwrap();
+    assert_eq!(listen.rsplit(':').next().unwrap().parse::<u64>().ok(), port["containerPort"].as_u64());
+
+    // The config map's config is read without its directories (none exist here), and an
+    // unreachable Prometheus is the user's to fix: exit 2, saying so.
+    let dir = TempDir::new("deploy-fleet");
+    let cfg = dir.path("riskbound.yaml");
+    std::fs::write(&cfg, cm["data"]["riskbound.yaml"].as_str().unwrap()).unwrap();
+    let dead = format!("http://127.0.0.1:{}", free_port());
+    let out = Command::new(bin())
+        .args(["fleet", "--config", cfg.to_str().unwrap(), "--prometheus", &dead, "--once"])
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{err}");
+    assert!(err.contains("connecting to Prometheus at"), "{err}");
+
+    // Served, /healthz answers at once and /readyz only after a round read Prometheus (which
+    // is not there): 503.
+    let local = free_port();
+    let mut child = Command::new(bin())
+        .args(["fleet", "--config", cfg.to_str().unwrap(), "--prometheus", &dead])
+        .args(["--listen", &format!("127.0.0.1:{local}"), "--interval", "1s"])
+        .stderr(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    let get = |path: &str| common::http(local, "GET", path);
+    let mut health = None;
+    for _ in 0..100 {
+        health = get(c["livenessProbe"]["httpGet"]["path"].as_str().unwrap()).ok();
+        if health.is_some() {
+            break;
+        }
+        std::thread::sleep(std::time::Duration::from_millis(50));
+    }
+    assert_eq!(health.map(|h| h.0), Some(200));
+    assert_eq!(get(c["readinessProbe"]["httpGet"]["path"].as_str().unwrap()).unwrap().0, 503);
+    // The failed round shows in the fleet view's own series.
+    let mut metrics = String::new();
+    for _ in 0..100 {
+        metrics = get("/metrics").unwrap().1;
+        if metrics.contains("riskbound_fleet_stale 1") {
+            break;
+        }
+        std::thread::sleep(std::time::Duration::from_millis(50));
+    }
+    assert!(metrics.contains("riskbound_fleet_stale 1"), "{metrics}");
+    assert!(metrics.contains("riskbound_fleet_query_failures_total{reason=\"unreachable\"}"), "{metrics}");
+    child.kill().unwrap();
+    child.wait().unwrap();
+    for probe in ["readinessProbe", "livenessProbe"] {
+        assert_eq!(c[probe]["httpGet"]["port"], port["name"], "{probe}");
+    }
+    assert!(c["resources"]["limits"]["memory"].is_string() && c["resources"]["limits"]["cpu"].is_string());
+    assert_eq!(c["securityContext"]["readOnlyRootFilesystem"], true);
+}
+
 #[test]
 fn containerfile_and_systemd_unit_name_what_exists() {
     let cf = std::fs::read_to_string(repo("deploy/Containerfile")).unwrap();

@@ -33,6 +33,8 @@ need = {"riskbound_risk_upper_bound", "riskbound_risk_lower_bound", "riskbound_r
         "riskbound_alarm_log_evidence", "riskbound_alarm_log_threshold", "riskbound_alarm_firing",
         "riskbound_alarm_max_risk", "riskbound_anytime_reset_timestamp_seconds", "riskbound_anytime_resets",
         "riskbound_window_cohort_predictions", "riskbound_window_cohort_unlabelled",
+        "riskbound_window_total_squared_loss", "riskbound_window_cohort_total_loss",
+        "riskbound_window_cohort_total_squared_loss", "riskbound_loss_max",
         "riskbound_label_delay_median_by_outcome_seconds", "riskbound_label_delay_p90_by_outcome_seconds",
         "riskbound_label_delay_outcome_samples", "riskbound_label_delay_outcome_p_value",
         "riskbound_label_delay_outcome_dependent",

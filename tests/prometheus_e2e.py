@@ -64,6 +64,23 @@ def wait(what, timeout, f):
     raise SystemExit(f"timed out waiting for {what}; last: {last}")
 
 
+def stop_all(procs, work):
+    """Stops the processes a test started (SIGTERM, then SIGKILL after 10 s) and removes its
+    folder, unless KEEP is set."""
+    for p in procs:
+        if p.poll() is None:
+            p.terminate()
+    for p in procs:
+        try:
+            p.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            p.kill()
+    if os.environ.get("KEEP"):
+        print("kept", work)
+    else:
+        shutil.rmtree(work, ignore_errors=True)
+
+
 def webhook_server():
     """A webhook receiver on 127.0.0.1: returns (list of (path, JSON body), port)."""
     import http.server
@@ -284,17 +301,7 @@ scrape_configs:
             print("alertmanager routed:", sorted(got))
         print("prometheus end to end: ok")
     finally:
-        for p in procs:
-            p.terminate()
-        for p in procs:
-            try:
-                p.wait(timeout=10)
-            except subprocess.TimeoutExpired:
-                p.kill()
-        if os.environ.get("KEEP"):
-            print("kept", work)
-        else:
-            shutil.rmtree(work, ignore_errors=True)
+        stop_all(procs, work)
 
 
 if __name__ == "__main__":

@@ -12,7 +12,7 @@ mkdir -p "$work/in"
 # The reference set: 1 wrong in 4 (its upper bound feeds the shift alarm's threshold).
 printf 'p,y\n1,1\n1,0\n1,1\n1,1\n' > "$work/validation.csv"
 cp "$here/rules/riskbound.yaml" "$work/riskbound.yaml"
-"$bin" rules --config "$work/riskbound.yaml" --job sidecar > "$work/rules.yaml"
+"$bin" rules --config "$work/riskbound.yaml" --job sidecar --fleet-job fleet > "$work/rules.yaml"
 promtool check rules "$work/rules.yaml"
 cp "$here/rules/alerts_test.yaml" "$work/"
 (cd "$work" && promtool test rules alerts_test.yaml)

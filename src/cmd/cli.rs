@@ -41,6 +41,9 @@ pub enum Command {
     HashPassword(HashPasswordArgs),
     /// Validate a daemon config file (and a web config) and print the resolved settings (exit 0 or 2)
     CheckConfig(CheckConfigArgs),
+    /// Pool every replica's windows, read back through the Prometheus HTTP API, into fleet-wide
+    /// bounds, SLA states and alarms: printed once, or served on /metrics
+    Fleet(FleetArgs),
     /// Run the daemon on an invented scenario (a parcel-delivery model) at accelerated speed
     Demo(super::demo::DemoArgs),
 }
@@ -107,6 +110,60 @@ pub struct RunArgs {
 }
 
 #[derive(Args)]
+pub struct FleetArgs {
+    /// The replicas' YAML config (any replica's): the models, losses, confidences, windows and
+    /// SLAs to expect. Its input directories need not exist here
+    #[arg(long, value_name = "FILE")]
+    pub config: PathBuf,
+    /// The Prometheus (or Prometheus-compatible store) that scrapes the replicas, as
+    /// http[s]://host:port[/prefix]
+    #[arg(long, value_name = "URL")]
+    pub prometheus: String,
+    /// Only the replicas of this scrape job (default: every job with riskbound series)
+    #[arg(long, value_name = "NAME")]
+    pub job: Option<String>,
+    /// Serve the fleet series on this address (/metrics, /healthz, /readyz)
+    #[arg(long, value_name = "ADDR", conflicts_with = "once")]
+    pub listen: Option<std::net::SocketAddr>,
+    /// Time between rounds when serving
+    #[arg(long, value_name = "DURATION", default_value = "30s", value_parser = duration_arg)]
+    pub interval: std::time::Duration,
+    /// Pool once, print, and exit (2 when Prometheus cannot be read)
+    #[arg(long)]
+    pub once: bool,
+    /// With --once: one JSON document instead of a table
+    #[arg(long, requires = "once")]
+    pub json: bool,
+    /// A replica whose last successful scrape is older than this is left out as stale
+    #[arg(long, value_name = "DURATION", default_value = "2m", value_parser = duration_arg)]
+    pub max_age: std::time::Duration,
+    /// How long one query may take
+    #[arg(long, value_name = "DURATION", default_value = "10s", value_parser = duration_arg)]
+    pub timeout: std::time::Duration,
+    /// Basic-auth user toward Prometheus (with --prometheus-password-file)
+    #[arg(long, value_name = "NAME", requires = "prometheus_password_file")]
+    pub prometheus_user: Option<String>,
+    /// File whose first line is the basic-auth password toward Prometheus
+    #[arg(long, value_name = "FILE", requires = "prometheus_user")]
+    pub prometheus_password_file: Option<PathBuf>,
+    /// PEM file of the CA certificates that sign Prometheus's certificate (https; default: the
+    /// platform's trusted roots)
+    #[arg(long, value_name = "FILE")]
+    pub prometheus_ca_file: Option<PathBuf>,
+    /// TLS and basic-auth settings of the fleet view's own /metrics, as for `run`
+    #[arg(long, value_name = "FILE", requires = "listen")]
+    pub web_config: Option<PathBuf>,
+    /// Log format (when serving)
+    #[arg(long, value_name = "FORMAT", default_value = "human")]
+    pub log_format: LogFormat,
+}
+
+/// A duration argument as the config writes them (500ms, 30s, 5m, 1h).
+fn duration_arg(s: &str) -> Result<std::time::Duration, String> {
+    crate::config::parse_duration(s).and_then(|d| if d.is_zero() { Err("must be above 0".to_string()) } else { Ok(d) })
+}
+
+#[derive(Args)]
 pub struct ResetArgs {
     /// The model's name, as in the config
     pub model: String,
@@ -123,6 +180,9 @@ pub struct RulesArgs {
     /// The job label of Prometheus's scrape of riskbound (for the "down" alert)
     #[arg(long, value_name = "NAME", default_value = super::rules::DEFAULT_JOB)]
     pub job: String,
+    /// Also the fleet view's rules, for its scrape job of this name (`riskbound fleet --listen`)
+    #[arg(long, value_name = "NAME")]
+    pub fleet_job: Option<String>,
 }
 
 #[derive(Args)]

@@ -1,5 +1,6 @@
 //! The command line's errors and their exit codes: 0 success, 2 the user's to fix (usage,
-//! bad input, a bad config, an address already taken), 1 anything else.
+//! bad input, a bad config, an address already taken, a Prometheus the fleet view cannot read),
+//! 1 anything else.
 
 /// An error that is the user's to fix, with the message to print.
 #[derive(Debug, thiserror::Error)]
@@ -15,7 +16,10 @@ pub fn exit_code(e: &anyhow::Error) -> u8 {
         || e.downcast_ref::<super::bound::BoundError>().is_some()
         || e.downcast_ref::<crate::ingest::DecodeError>().is_some()
         || matches!(e.downcast_ref::<super::track::TrackError>(), Some(super::track::TrackError::Input(_)))
-        || e.downcast_ref::<crate::app::BindError>().is_some();
+        || e.downcast_ref::<crate::app::BindError>().is_some()
+        // Prometheus unreachable, refusing, or answering nonsense: the fleet view's setup or
+        // its metrics stack is the user's to fix.
+        || e.downcast_ref::<crate::fleet::PromError>().is_some();
     if users {
         2
     } else {

@@ -7,6 +7,7 @@ pub mod check_config;
 pub mod cli;
 pub mod demo;
 pub mod error;
+pub mod fleet;
 pub mod hash_password;
 pub mod reset;
 pub mod rules;

@@ -58,6 +58,9 @@ pub fn parse_bytes(s: &str) -> Result<u64, String> {
 pub(super) struct Checker {
     pub(super) base: PathBuf,
     pub(super) issues: Vec<ConfigIssue>,
+    /// False where the config is read away from the replica (the fleet view): its input
+    /// directories are not there to list.
+    pub(super) check_dirs: bool,
 }
 
 impl Checker {

@@ -112,13 +112,14 @@ pub(crate) fn parse_issue(e: &serde_saphyr::Error) -> ConfigIssue {
 
 /// Reads and validates a config file.
 pub fn load(path: &Path) -> Result<Config, ConfigError> {
-    let file = path.display().to_string();
-    let one = |reason: String| ConfigError {
-        file: file.clone(),
-        issues: vec![ConfigIssue { line: 1, column: 1, key: "(file)".into(), reason }],
-    };
-    let text = std::fs::read_to_string(path).map_err(|e| one(format!("cannot read: {e}")))?;
-    parse(&text, path)
+    parse(&read(path)?, path)
+}
+
+fn read(path: &Path) -> Result<String, ConfigError> {
+    std::fs::read_to_string(path).map_err(|e| ConfigError {
+        file: path.display().to_string(),
+        issues: vec![ConfigIssue { line: 1, column: 1, key: "(file)".into(), reason: format!("cannot read: {e}") }],
+    })
 }
 
 /// Reads and validates a config file and, when given, the web config beside it: the one
@@ -131,14 +132,29 @@ pub fn load_with_web(path: &Path, web_config: Option<&Path>) -> Result<Config, C
     Ok(config)
 }
 
+/// Reads and validates a replica's config where the replica does not run (the fleet view):
+/// everything is checked but that its input directories can be listed here.
+pub fn load_elsewhere(path: &Path) -> Result<Config, ConfigError> {
+    parse_elsewhere(&read(path)?, path)
+}
+
+/// Validates config text as [`load_elsewhere`] does.
+pub fn parse_elsewhere(text: &str, path: &Path) -> Result<Config, ConfigError> {
+    parse_checked(text, path, false)
+}
+
 /// Validates config text as if it were read from `path`.
 pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
+    parse_checked(text, path, true)
+}
+
+fn parse_checked(text: &str, path: &Path, check_dirs: bool) -> Result<Config, ConfigError> {
     let file = path.display().to_string();
     let raw: RawConfig =
         serde_saphyr::from_str(text).map_err(|e| ConfigError { file: file.clone(), issues: vec![parse_issue(&e)] })?;
     let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
     let base = if base.as_os_str().is_empty() { PathBuf::from(".") } else { base };
-    let mut c = Checker { base, issues: Vec::new() };
+    let mut c = Checker { base, issues: Vec::new(), check_dirs };
 
     let listen = match &raw.listen {
         None => DEFAULT_LISTEN.parse().expect("valid default"),

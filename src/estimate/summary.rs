@@ -47,6 +47,13 @@ impl U256 {
         let low = U256::product(self.lo, u128::from(k));
         U256 { hi: low.hi + self.hi * u128::from(k), lo: low.lo }
     }
+    /// The integer nearest a non-negative finite f64 below 2^256.
+    fn from_f64(v: f64) -> U256 {
+        let two128 = 2f64.powi(128);
+        let hi = (v / two128).floor();
+        let lo = (v - hi * two128).max(0.0);
+        U256 { hi: hi as u128, lo: lo.round() as u128 }
+    }
     fn to_f64(self) -> f64 {
         self.hi as f64 * 2f64.powi(128) + self.lo as f64
     }
@@ -104,6 +111,36 @@ impl LossStats {
         self.n_at_zero -= u64::from(f.at_zero);
         self.n_at_max -= u64::from(f.at_max);
         self.n_rounded -= u64::from(f.rounded);
+    }
+
+    /// Statistics rebuilt from totals kept elsewhere, in loss units: `sum` and `squares` are the
+    /// sums of the losses and of their squares (as the exported series carry them, so the fleet
+    /// view can pool replicas). `binary` says every loss is 0 or B (then `sum / B` is the count
+    /// at B and everything is exact); otherwise every loss counts as rounded, and a caller that
+    /// got the totals through f64 allows for their rounding itself.
+    pub fn from_totals(n: u64, sum: f64, squares: f64, loss_max: f64, binary: bool) -> LossStats {
+        if binary {
+            let k = (sum / loss_max).round().clamp(0.0, n as f64) as u64;
+            let one = U256::product(u128::from(ONE), u128::from(ONE));
+            return LossStats {
+                n,
+                sum: u128::from(k) * u128::from(ONE),
+                squares: one.times(k),
+                n_at_zero: n - k,
+                n_at_max: k,
+                n_rounded: 0,
+            };
+        }
+        let s = (sum / loss_max).clamp(0.0, n as f64);
+        let q = (squares / (loss_max * loss_max)).clamp(0.0, n as f64);
+        LossStats {
+            n,
+            sum: (s * ONE_F).round() as u128,
+            squares: U256::from_f64(q * ONE_F * ONE_F),
+            n_at_zero: 0,
+            n_at_max: 0,
+            n_rounded: n,
+        }
     }
 
     /// Number of losses.
@@ -269,6 +306,24 @@ mod tests {
             assert_eq!(moved, direct);
             assert_eq!(moved.mean_scaled().to_bits(), direct.mean_scaled().to_bits());
         }
+    }
+
+    #[test]
+    fn statistics_rebuilt_from_exported_totals_match_the_pushed_ones() {
+        // Binary: exact, bit for bit.
+        let mut s = LossStats::default();
+        (0..10_007u64).for_each(|i| s.push(if i % 5 == 0 { 1.0 } else { 0.0 }, 1.0));
+        let t = LossStats::from_totals(s.n(), s.sum_scaled(), s.squares_scaled(), 1.0, true);
+        assert_eq!(t, s);
+        // Other losses: the mean and variance to f64 precision.
+        let mut rng = crate::estimate::seeded::Seeded::new(5);
+        let mut s = LossStats::default();
+        (0..5_000).for_each(|_| s.push(7.0 * rng.uniform(), 7.0));
+        let t = LossStats::from_totals(s.n(), s.sum_scaled() * 7.0, s.squares_scaled() * 49.0, 7.0, false);
+        assert!((t.mean_scaled() - s.mean_scaled()).abs() < 1e-15, "{} {}", t.mean_scaled(), s.mean_scaled());
+        let (a, b) = (t.variance_unbiased_scaled(), s.variance_unbiased_scaled());
+        assert!((a - b).abs() < 1e-12 * b, "{a} {b}");
+        assert_eq!(t.n_rounded(), 5_000);
     }
 
     #[test]

@@ -1,6 +1,7 @@
 //! The output end of the data path: the latest [`crate::window::Snapshot`] rendered as
 //! Prometheus metrics, and the HTTP server that serves them with health and readiness.
 
+pub mod fleet;
 pub mod process;
 pub mod registry;
 pub mod server;

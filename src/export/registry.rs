@@ -41,6 +41,10 @@ pub mod names {
     pub const SAMPLES: &str = "riskbound_window_samples";
     pub const SAMPLES_USED: &str = "riskbound_window_samples_used";
     pub const TOTAL_LOSS: &str = "riskbound_window_total_loss";
+    pub const TOTAL_SQUARED_LOSS: &str = "riskbound_window_total_squared_loss";
+    pub const COHORT_TOTAL_LOSS: &str = "riskbound_window_cohort_total_loss";
+    pub const COHORT_TOTAL_SQUARED_LOSS: &str = "riskbound_window_cohort_total_squared_loss";
+    pub const LOSS_MAX: &str = "riskbound_loss_max";
     pub const CONFIDENCE: &str = "riskbound_bound_confidence_ratio";
     pub const SLA_MAX: &str = "riskbound_sla_max_risk";
     pub const SLA_STATE: &str = "riskbound_sla_state";
@@ -84,6 +88,27 @@ pub mod names {
     pub const HTTP_TIMED_OUT: &str = "riskbound_http_connections_timed_out";
     pub const HTTP_MAX: &str = "riskbound_http_connections_max";
     pub const MEMORY_LIMIT: &str = "riskbound_memory_limit_bytes";
+    // The fleet view's series (export/fleet.rs): replicas pooled through Prometheus.
+    pub const FLEET_UPPER: &str = "riskbound_fleet_risk_upper_bound";
+    pub const FLEET_LOWER: &str = "riskbound_fleet_risk_lower_bound";
+    pub const FLEET_SAMPLES: &str = "riskbound_fleet_window_samples";
+    pub const FLEET_TOTAL_LOSS: &str = "riskbound_fleet_window_total_loss";
+    pub const FLEET_WINDOW_REPLICAS: &str = "riskbound_fleet_window_replicas";
+    pub const FLEET_COHORT: &str = "riskbound_fleet_window_cohort_predictions";
+    pub const FLEET_COHORT_UNLABELLED: &str = "riskbound_fleet_window_cohort_unlabelled";
+    pub const FLEET_SLA_STATE: &str = "riskbound_fleet_sla_state";
+    pub const FLEET_COVERAGE: &str = "riskbound_fleet_label_coverage_ratio";
+    pub const FLEET_CONFIDENCE: &str = "riskbound_fleet_bound_confidence_ratio";
+    pub const FLEET_ALARM_EVIDENCE: &str = "riskbound_fleet_alarm_log_evidence";
+    pub const FLEET_ALARM_THRESHOLD: &str = "riskbound_fleet_alarm_log_threshold";
+    pub const FLEET_ALARM_FIRING: &str = "riskbound_fleet_alarm_firing";
+    pub const FLEET_ALARM_REPLICAS: &str = "riskbound_fleet_alarm_replicas";
+    pub const FLEET_REPLICAS_SEEN: &str = "riskbound_fleet_replicas_seen";
+    pub const FLEET_LEFT_OUT: &str = "riskbound_fleet_replicas_left_out";
+    pub const FLEET_STALE: &str = "riskbound_fleet_stale";
+    pub const FLEET_LAST_SUCCESS: &str = "riskbound_fleet_last_success_timestamp_seconds";
+    pub const FLEET_FAILURES: &str = "riskbound_fleet_query_failures";
+    pub const FLEET_BUILD_INFO: &str = "riskbound_fleet_build_info";
     // The process metrics of the Prometheus client conventions, under their standard names.
     pub const PROCESS_CPU: &str = "process_cpu_seconds";
     pub const PROCESS_RSS: &str = "process_resident_memory_bytes";
@@ -105,7 +130,7 @@ pub fn delay_robust_guarantee(g: crate::config::WindowGuarantee) -> &'static str
 /// The `guarantee` label value of the anytime sequences: valid at every label at once.
 pub const ANYTIME: &str = "anytime";
 
-type Labels = Vec<(&'static str, String)>;
+pub(super) type Labels = Vec<(&'static str, String)>;
 
 #[derive(Debug)]
 struct SnapshotCollector {
@@ -114,7 +139,7 @@ struct SnapshotCollector {
     max_connections: usize,
 }
 
-fn family<M: EncodeMetric>(
+pub(super) fn family<M: EncodeMetric>(
     enc: &mut DescriptorEncoder,
     name: &str,
     help: &str,
@@ -128,7 +153,7 @@ fn family<M: EncodeMetric>(
     Ok(())
 }
 
-fn gauges(
+pub(super) fn gauges(
     enc: &mut DescriptorEncoder,
     name: &str,
     help: &str,
@@ -137,7 +162,7 @@ fn gauges(
     family(enc, name, help, MetricType::Gauge, series.into_iter().map(|(l, v)| (l, ConstGauge::new(v))))
 }
 
-fn counters(
+pub(super) fn counters(
     enc: &mut DescriptorEncoder,
     name: &str,
     help: &str,
@@ -223,6 +248,35 @@ fn encode_bounds(snap: &Snapshot, e: &mut DescriptorEncoder) -> Result<(), std::
             })
             .collect::<Vec<_>>()
     };
+    gauges(
+        e,
+        names::TOTAL_SQUARED_LOSS,
+        "Sum of the squares of the window's losses: with the sample count and total loss, what pools the empirical-bernstein bound across replicas",
+        snap.models.iter().flat_map(|m| m.windows.iter().map(move |w| (mw(&m.name, &w.name), w.loss_squares))),
+    )?;
+    let cohorts = || {
+        snap.models
+            .iter()
+            .flat_map(|m| m.windows.iter().filter_map(move |w| w.cohort.as_ref().map(|c| (mw(&m.name, &w.name), c))))
+    };
+    gauges(
+        e,
+        names::COHORT_TOTAL_LOSS,
+        "Sum of the losses of the window's cohort predictions that have a label (the delay-robust bounds' known part)",
+        cohorts().map(|(l, c)| (l, c.known_sum)),
+    )?;
+    gauges(
+        e,
+        names::COHORT_TOTAL_SQUARED_LOSS,
+        "Sum of the squares of the losses of the window's cohort predictions that have a label",
+        cohorts().map(|(l, c)| (l, c.known_squares)),
+    )?;
+    gauges(
+        e,
+        names::LOSS_MAX,
+        "The model's loss maximum B (every loss lies in [0, B]), by loss name",
+        snap.models.iter().map(|m| (vec![("model", m.name.clone()), ("loss", m.loss_name.to_string())], m.loss_max)),
+    )?;
     gauges(
             e,
             names::COHORT,
@@ -567,27 +621,32 @@ impl SnapshotCollector {
                 one(limit as f64),
             )?;
         }
-        let Some(p) = super::process::read() else { return Ok(()) };
-        let mut cpu = e.encode_descriptor(
-            names::PROCESS_CPU,
-            "Total user and system CPU time spent in seconds.",
-            None,
-            MetricType::Counter,
-        )?;
-        prometheus_client::metrics::counter::ConstCounter::new(p.cpu_seconds)
-            .encode(cpu.encode_family(&Labels::new())?)?;
-        gauges(e, names::PROCESS_RSS, "Resident memory size in bytes.", one(p.resident_bytes))?;
-        gauges(e, names::PROCESS_VIRTUAL, "Virtual memory size in bytes.", one(p.virtual_bytes))?;
-        gauges(e, names::PROCESS_OPEN_FDS, "Number of open file descriptors.", one(p.open_fds))?;
-        gauges(e, names::PROCESS_MAX_FDS, "Maximum number of open file descriptors.", one(p.max_fds))?;
-        gauges(
-            e,
-            names::PROCESS_START,
-            "Start time of the process since unix epoch in seconds.",
-            one(p.start_time_seconds),
-        )?;
-        Ok(())
+        encode_process(e)
     }
+}
+
+/// The process metrics, under the Prometheus client conventions' standard names.
+pub(super) fn encode_process(e: &mut DescriptorEncoder) -> Result<(), std::fmt::Error> {
+    let one = |v: f64| [(Labels::new(), v)];
+    let Some(p) = super::process::read() else { return Ok(()) };
+    let mut cpu = e.encode_descriptor(
+        names::PROCESS_CPU,
+        "Total user and system CPU time spent in seconds.",
+        None,
+        MetricType::Counter,
+    )?;
+    prometheus_client::metrics::counter::ConstCounter::new(p.cpu_seconds).encode(cpu.encode_family(&Labels::new())?)?;
+    gauges(e, names::PROCESS_RSS, "Resident memory size in bytes.", one(p.resident_bytes))?;
+    gauges(e, names::PROCESS_VIRTUAL, "Virtual memory size in bytes.", one(p.virtual_bytes))?;
+    gauges(e, names::PROCESS_OPEN_FDS, "Number of open file descriptors.", one(p.open_fds))?;
+    gauges(e, names::PROCESS_MAX_FDS, "Maximum number of open file descriptors.", one(p.max_fds))?;
+    gauges(
+        e,
+        names::PROCESS_START,
+        "Start time of the process since unix epoch in seconds.",
+        one(p.start_time_seconds),
+    )?;
+    Ok(())
 }
 
 /// A registry whose every scrape encodes the current snapshot.
@@ -618,12 +677,14 @@ mod tests {
             name: "a\"b\\c\nd".into(),
             confidence: 0.95,
             loss_max: 1.0,
+            loss_name: "zero-one",
             sla: None,
             windows: vec![WindowSnapshot {
                 name: "w\"1".into(),
                 n: 3,
                 mean: 0.5,
                 loss_sum: 1.5,
+                loss_squares: 1.5,
                 bounds: vec![],
                 used: vec![],
                 state: None,

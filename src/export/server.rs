@@ -315,6 +315,25 @@ where
     let _ = builder.serve_connection(hyper_util::rt::TokioIo::new(tracked), service).await;
 }
 
+/// Serves the three endpoints of `shared` on `listener` from a task of `runtime` until `stop`
+/// is notified: over TLS, and behind basic auth (probes excepted), as `web` says.
+pub fn spawn(
+    runtime: &tokio::runtime::Runtime,
+    listener: tokio::net::TcpListener,
+    shared: Arc<Shared>,
+    web: &crate::config::web::WebConfig,
+    limits: Limits,
+    stats: Arc<ListenerStats>,
+    stop: Arc<tokio::sync::Notify>,
+) -> tokio::task::JoinHandle<()> {
+    let mut app = router(shared);
+    if !web.users.is_empty() {
+        app = app.layer(axum::middleware::from_fn_with_state(web.clone(), super::web::require_auth));
+    }
+    let tls = web.tls.clone();
+    runtime.spawn(serve(listener, app, limits, stop, tls, stats))
+}
+
 /// Serves `router` on `listener` until `stop` is notified; over TLS when `tls` is given.
 pub async fn serve(
     listener: tokio::net::TcpListener,

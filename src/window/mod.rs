@@ -109,6 +109,9 @@ pub struct WindowSnapshot {
     pub mean: f64,
     /// Σ of the window's losses (for 0-1 loss, its error count), exact where `mean · n` rounds.
     pub loss_sum: f64,
+    /// Σ of the squared losses (loss units squared): with `n` and `loss_sum`, what the fleet view
+    /// needs to pool the variance-adaptive bound across replicas.
+    pub loss_squares: f64,
     pub bounds: Vec<(Method, Bounds)>,
     /// The samples each method of `bounds` read: all of them, or (betting) the subsample.
     pub used: Vec<(Method, u64)>,
@@ -128,6 +131,9 @@ pub struct CohortSnapshot {
     pub range: CohortRange,
     pub predictions: u64,
     pub unlabelled: u64,
+    /// Σ of the labelled predictions' losses and of their squares (loss units), for pooling.
+    pub known_sum: f64,
+    pub known_squares: f64,
     /// Bounds with every unknown loss at 0 (lower) and at B (upper), at the window confidence.
     pub bounds: Vec<(Method, Bounds)>,
     /// The predictions each method of `bounds` read: all, or (betting) the subsample.
@@ -164,6 +170,8 @@ fn cohort_snapshot(
         range,
         predictions: c.n(),
         unlabelled: c.unknown(),
+        known_sum: c.known.sum_scaled() * model.loss.max(),
+        known_squares: c.known.squares_scaled() * model.loss.max() * model.loss.max(),
         used: bounds.iter().map(|(m, _)| (*m, c.used_by(*m))).collect(),
         bounds,
     }
@@ -280,6 +288,8 @@ pub struct ModelSnapshot {
     pub name: String,
     pub confidence: f64,
     pub loss_max: f64,
+    /// The loss's name as the config writes it (`zero-one`, `absolute`, ...).
+    pub loss_name: &'static str,
     pub sla: Option<SlaConfig>,
     pub windows: Vec<WindowSnapshot>,
     pub window_guarantee: WindowGuarantee,
@@ -398,6 +408,7 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
             n: summary.n(),
             mean: summary.mean(),
             loss_sum: summary.sum(),
+            loss_squares: summary.stats().squares_scaled() * model.loss.max() * model.loss.max(),
             bounds,
             used,
             state,
@@ -416,6 +427,7 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
         name: model.name.clone(),
         confidence: model.confidence.level(),
         loss_max: model.loss.max(),
+        loss_name: model.loss.name(),
         sla: model.sla.clone(),
         windows,
         window_guarantee: model.window_guarantee,
