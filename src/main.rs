@@ -20,6 +20,7 @@ fn main() -> ExitCode {
         Command::HashPassword(a) => cmd::hash_password::main(a),
         Command::CheckConfig(a) => cmd::check_config::main(a),
         Command::Fleet(a) => cmd::fleet::main(a),
+        Command::InputShift(a) => cmd::input_shift::main(a),
         Command::Demo(a) => cmd::demo::main(a),
     };
     match result {

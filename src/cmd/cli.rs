@@ -41,6 +41,9 @@ pub enum Command {
     HashPassword(HashPasswordArgs),
     /// Validate a daemon config file (and a web config) and print the resolved settings (exit 0 or 2)
     CheckConfig(CheckConfigArgs),
+    /// Test whether the model's inputs (or scores) changed between a reference file and a
+    /// current one, without labels: kernel MMD (permutation and spectral tests) and per-column KS
+    InputShift(InputShiftArgs),
     /// Pool every replica's windows, read back through the Prometheus HTTP API, into fleet-wide
     /// bounds, SLA states and alarms: printed once, or served on /metrics
     Fleet(FleetArgs),
@@ -107,6 +110,49 @@ pub struct RunArgs {
     /// basic_auth_users), as Prometheus exporters take them
     #[arg(long, value_name = "FILE")]
     pub web_config: Option<PathBuf>,
+}
+
+#[derive(Args)]
+pub struct InputShiftArgs {
+    /// The reference file (the validation set, or a healthy period): CSV or JSON Lines
+    #[arg(long, value_name = "FILE")]
+    pub reference: PathBuf,
+    /// The current file, compared with the reference (it must share no rows with it)
+    #[arg(long, value_name = "FILE")]
+    pub current: PathBuf,
+    /// Numeric columns, comma-separated; standardised by the reference's mean and standard deviation
+    #[arg(long, value_name = "A,B", value_delimiter = ',')]
+    pub columns: Vec<String>,
+    /// Categorical columns, comma-separated; a differing value adds 1 to the squared distance
+    #[arg(long, value_name = "C,D", value_delimiter = ',')]
+    pub categorical: Vec<String>,
+    /// The Gaussian kernel's bandwidth σ (default: the median pairwise distance of the pooled sample)
+    #[arg(long, value_name = "S", value_parser = parse_loss_max)]
+    pub bandwidth: Option<f64>,
+    /// Confidence C: a test says "shifted" when its p-value is at most 1 - C
+    #[arg(long, value_name = "C", default_value = "0.95", value_parser = parse_confidence)]
+    pub confidence: Confidence,
+    /// Permutations of the permutation test (0: skip it)
+    #[arg(long, value_name = "P", default_value = "1000")]
+    pub permutations: usize,
+    /// Draws from the spectral test's simulated null
+    #[arg(long, value_name = "D", default_value = "10000", value_parser = clap::value_parser!(u64).range(99..))]
+    pub null_draws: u64,
+    /// Seed of the subsample, the permutations and the null draws
+    #[arg(long, value_name = "N", default_value = "1")]
+    pub seed: u64,
+    /// Above this many points per side, a seeded uniform subsample (the tests cost (m+n)^2 memory and up to (m+n)^3 time)
+    #[arg(long, value_name = "M", default_value = "2000", value_parser = clap::value_parser!(u64).range(2..=20_000))]
+    pub max_points: u64,
+    /// Input format of both files; by default taken from each file's extension
+    #[arg(long, value_name = "FORMAT")]
+    pub format: Option<FormatArg>,
+    /// One JSON document instead of a table
+    #[arg(long)]
+    pub json: bool,
+    /// Print the time of each phase to standard error (used by the benchmark)
+    #[arg(long, hide = true)]
+    pub timings: bool,
 }
 
 #[derive(Args)]

@@ -19,7 +19,8 @@ pub fn exit_code(e: &anyhow::Error) -> u8 {
         || e.downcast_ref::<crate::app::BindError>().is_some()
         // Prometheus unreachable, refusing, or answering nonsense: the fleet view's setup or
         // its metrics stack is the user's to fix.
-        || e.downcast_ref::<crate::fleet::PromError>().is_some();
+        || e.downcast_ref::<crate::fleet::PromError>().is_some()
+        || e.downcast_ref::<super::input_shift::ShiftError>().is_some();
     if users {
         2
     } else {

@@ -54,14 +54,7 @@ pub fn main(a: &FleetArgs) -> anyhow::Result<()> {
         .context("starting the async runtime")?;
     if a.once {
         let report = runtime.block_on(round(&client, &config, a, &BTreeSet::new()))?;
-        let mut out = std::io::stdout().lock();
-        if a.json {
-            serde_json::to_writer_pretty(&mut out, &report)?;
-            writeln!(out)?;
-        } else {
-            write_table(&mut out, &report)?;
-        }
-        return Ok(());
+        return super::print_report(&report, a.json, write_table);
     }
     let web = match &a.web_config {
         Some(w) => crate::config::web::load(w)?,

@@ -5,6 +5,7 @@
 
 pub mod decode;
 pub mod losses;
+pub mod points;
 pub mod reader;
 pub mod records;
 pub mod watch;
