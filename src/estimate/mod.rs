@@ -16,6 +16,7 @@ pub mod delay_dependence;
 pub mod delay_robust;
 pub mod hoeffding;
 pub mod kernel;
+pub mod kernel_betting;
 pub mod kl;
 pub mod ks;
 pub mod seeded;
