@@ -83,6 +83,9 @@ struct Pipeline {
     /// opened again for writing before the next round, since SQLite never upgrades a
     /// connection it opened read-only.
     needs_reopen: bool,
+    /// Each model's latest input-shift look (a look costs up to seconds, so it is kept and
+    /// repeated only `every` of event time later; after a restart the first publish looks).
+    looks: HashMap<String, window::shift::ShiftLook>,
 }
 
 impl Pipeline {
@@ -102,11 +105,59 @@ impl Pipeline {
             } else {
                 1
             };
-            models.push(window::model_snapshot(&self.store, m, k)?);
+            let mut snap = window::model_snapshot(&self.store, m, k)?;
+            if m.input_shift.is_some() {
+                Self::look_if_due(&mut self.store, &mut self.looks, m);
+                snap.input_shift = window::shift::snapshot(&self.store, m, self.looks.get(&m.name))
+                    .inspect_err(|e| tracing::warn!(model = %m.name, error = %e, "cannot read the input-shift alarm"))
+                    .ok()
+                    .flatten();
+            }
+            models.push(snap);
         }
         *self.snapshot.write().expect("snapshot lock poisoned") = Arc::new(Snapshot { models });
         self.resets_seen = self.store.resets_total()?;
         Ok(())
+    }
+
+    /// Runs the model's input-shift look when one is due, then prunes the stored points the
+    /// window has left. Trouble here never stops ingest: it is logged, and the last look stays.
+    fn look_if_due(
+        store: &mut Store,
+        looks: &mut HashMap<String, window::shift::ShiftLook>,
+        m: &crate::config::ModelConfig,
+    ) {
+        let Some(sh) = &m.input_shift else { return };
+        let started = Instant::now();
+        let look = match window::shift::look_due(store, m, looks.get(&m.name)) {
+            Ok(true) => window::shift::look(store, m, sh),
+            Ok(false) => return,
+            Err(e) => Err(e),
+        };
+        match look {
+            Ok(Some(l)) => {
+                match &l.outcome {
+                    Ok(t) => tracing::info!(
+                        model = %m.name,
+                        points = l.n_current,
+                        in_window = l.in_window,
+                        permutation_p = t.permutation_p,
+                        spectral_p = t.spectral.p_value,
+                        ms = started.elapsed().as_millis() as u64,
+                        "input-shift look"
+                    ),
+                    Err(why) => tracing::info!(model = %m.name, "input-shift look inconclusive: {why}"),
+                }
+                if let Some(from) = l.from {
+                    if let Err(e) = store.prune_shift(&m.name, from) {
+                        tracing::warn!(model = %m.name, error = %e, "cannot prune input-shift points; will retry at the next look");
+                    }
+                }
+                looks.insert(m.name.clone(), l);
+            }
+            Ok(None) => {}
+            Err(e) => tracing::warn!(model = %m.name, error = %e, "input-shift look failed; the last one is kept"),
+        }
     }
 
     /// Fills `settled` with the files the store records as taken, at the size and mtime they
@@ -172,10 +223,11 @@ impl Pipeline {
         };
         let src = if c.kind == Kind::Prediction { &model.predictions } else { &model.labels };
         let format = src.format.or_else(|| Format::from_path(&c.path)).unwrap_or(Format::Csv);
-        // Slice features travel with predictions (they describe the request, not the outcome).
-        let features = match (&model.slices, c.kind) {
-            (Some(sl), Kind::Prediction) => sl.columns(),
-            _ => Vec::new(),
+        // Slice and input-shift features travel with predictions (they describe the request,
+        // not the outcome).
+        let features = match c.kind {
+            Kind::Prediction => model.feature_columns(),
+            Kind::Label => Vec::new(),
         };
         let columns =
             Columns { id: &src.id_column, time: &src.time_column, value: &src.value_column, features: &features };
@@ -455,6 +507,7 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         rounds_begun: 0,
         resets_seen: 0,
         needs_reopen: !writable,
+        looks: HashMap::new(),
     };
     // Resume: the snapshot of the committed state is published before anything new is read,
     // and only then is the daemon ready. Ready is a latch: it never turns back, whatever the

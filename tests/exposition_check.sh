@@ -41,6 +41,11 @@ need = {"riskbound_risk_upper_bound", "riskbound_risk_lower_bound", "riskbound_r
         "riskbound_http_connections_open", "riskbound_http_connections_max", "riskbound_http_connections_accepted",
         "riskbound_http_connections_rejected", "riskbound_http_connections_evicted",
         "riskbound_http_connections_timed_out",
+        # The demo's input-shift section (its looks and its alarm).
+        "riskbound_input_shift_p_value", "riskbound_input_shift_shifted", "riskbound_input_shift_mmd2",
+        "riskbound_input_shift_bandwidth", "riskbound_input_shift_points", "riskbound_input_shift_ks_p_value",
+        "riskbound_input_shift_inconclusive", "riskbound_input_shift_alarm_pool_left",
+        "riskbound_input_shift_alarm_unpaired",
         # The process metrics of the Prometheus client conventions, read from /proc.
         "process_cpu_seconds", "process_resident_memory_bytes", "process_virtual_memory_bytes",
         "process_open_fds", "process_max_fds", "process_start_time_seconds"}

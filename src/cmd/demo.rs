@@ -9,7 +9,11 @@
 //! never arrive. For the first twelve days the error rate is about 6% everywhere; then the
 //! north-east region's error jumps, which lifts the overall error past the 10% SLA. The windows
 //! built on labelled samples alone are fooled by the delays; the delay-robust bounds (and the
-//! SLA state they decide) and the mature window are not. The demo writes the
+//! SLA state they decide) and the mature window are not. The inputs are tested too, without
+//! labels, against a reference of the healthy period's inputs: the north-east change leaves the
+//! inputs alone (a harmful change the input-shift tests cannot see), and from day 16 a new bulky
+//! goods customer makes parcels heavier without making the model worse (a harmless shift the
+//! input-shift alarm pages on: a shift of the inputs is not a rise of the risk). The demo writes the
 //! batches into a folder as a serving stack would (write under a temporary name, then rename),
 //! runs the real daemon on it, and prints the windows, their bounds and SLA states as they move.
 
@@ -80,9 +84,34 @@ models:
       # the day whose label_wait is over: every label that will come has come
       - {{ name: settled, span: 24h, mature: true }}
     sla: {{ max_risk: 0.10 }}
+    # label-free: have the inputs moved away from those of a healthy period?
+    input_shift:
+      reference: {{ file: reference-inputs.csv }}
+      columns: [weight_kg]
+      categorical: [region, carrier]
+      window: {{ name: recent-inputs, last: 500 }}
+      every: 6h
+      alarm: {{ sample_rate: 0.25 }}
 "
     )
 }
+
+/// The input-shift reference: 6000 parcels of the healthy period, drawn as the replay draws
+/// them (from a generator of its own, so the replay's stream is the same with or without it).
+fn reference_inputs() -> String {
+    let mut rng = crate::estimate::seeded::Seeded::new(20_261_130);
+    let mut body = String::from("region,carrier,weight_kg\n");
+    for _ in 0..6000 {
+        let region = REGIONS[rng.below(4) as usize];
+        let carrier = CARRIERS[rng.below(3) as usize];
+        let _ = writeln!(body, "{region},{carrier},{:.1}", 0.2 + 30.0 * rng.uniform());
+    }
+    body
+}
+
+/// From this day on, 40% of parcels come from a bulky-goods customer (20 to 60 kg): the inputs
+/// change, the model's error does not.
+const BULKY_FROM_DAY: i64 = 16;
 
 fn publish(dir: &Path, name: &str, body: &str) -> anyhow::Result<()> {
     let tmp = dir.join(format!(".{name}.tmp"));
@@ -176,6 +205,9 @@ pub fn table(snap: &Snapshot) -> String {
             m.counters.expired,
             m.label_coverage.map_or("-".into(), |c| format!("{:.3}", c))
         );
+        if let Some(sh) = &m.input_shift {
+            let _ = writeln!(s, "{:<12} {}", "", input_shift_line(sh));
+        }
         let d = &m.delay_dependence;
         if let (Some(p), [bad, good]) = (d.p_value, &d.groups) {
             let med = |g: &crate::estimate::delay_dependence::DelayGroup| {
@@ -203,6 +235,35 @@ pub fn table(snap: &Snapshot) -> String {
     s
 }
 
+/// The input-shift look and alarm in one line.
+fn input_shift_line(sh: &crate::window::shift::ShiftSnapshot) -> String {
+    let look = match &sh.look {
+        None => "no look yet".to_string(),
+        Some(l) => match &l.outcome {
+            Err(why) => format!("look inconclusive ({why})"),
+            Ok(t) => format!(
+                "look at {} of the newest {}: permutation p = {}, spectral p = {:.4}{}",
+                l.n_current,
+                l.in_window,
+                t.permutation_p.map_or("-".into(), |p| format!("{p:.4}")),
+                t.spectral.p_value,
+                if t.permutation_p.unwrap_or(t.spectral.p_value) <= 1.0 - sh.confidence { " SHIFTED" } else { "" }
+            ),
+        },
+    };
+    let alarm = match &sh.alarm {
+        None => "no alarm".to_string(),
+        Some(a) => match a.fired_at {
+            Some(n) => format!("alarm FIRED at pair {n} ({} reference points left)", a.pool_left),
+            None => format!(
+                "alarm quiet (log evidence {:.1} of {:.1}, {} pairs, {} reference points left)",
+                a.log_evidence, a.log_threshold, a.pairs, a.pool_left
+            ),
+        },
+    };
+    format!("inputs vs reference ({}): {look}; {alarm}. A shift of the inputs is not a rise of the risk", sh.window)
+}
+
 /// Runs the demo.
 /// `riskbound demo`: logs for people, then the scenario.
 pub fn main(a: &DemoArgs) -> anyhow::Result<()> {
@@ -219,6 +280,7 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
     std::fs::create_dir_all(&batches).with_context(|| format!("creating {}", batches.display()))?;
     let config_path = root.join("riskbound.yaml");
     std::fs::write(&config_path, config_text(&a.listen))?;
+    std::fs::write(root.join("reference-inputs.csv"), reference_inputs())?;
     let config = crate::config::load(&config_path).map_err(|e| anyhow::anyhow!("{e}"))?;
     let running = app::start(config)?;
     let url = format!("http://{}/metrics", running.addr);
@@ -236,6 +298,8 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
 
     // The project's one seeded generator: the scenario is the same on every run.
     let mut rng = crate::estimate::seeded::Seeded::new(20_261_201);
+    // The bulky parcels draw from their own generator, so the rest of the scenario is the same.
+    let mut bulky = crate::estimate::seeded::Seeded::new(20_261_216);
     let mut pending: Vec<Pending> = Vec::new();
     let hours = i64::from(a.days) * 24;
     let mut next_id = 0u64;
@@ -269,13 +333,12 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
                 outcome
             };
             let ts = t + rng.below(HOUR as u64) as i64;
-            let _ = writeln!(
-                body,
-                "{id},{},{region},{},{:.1},{predicted}",
-                rfc3339(ts),
-                CARRIERS[rng.below(3) as usize],
-                0.2 + 30.0 * rng.uniform()
-            );
+            let carrier = CARRIERS[rng.below(3) as usize];
+            let mut weight = 0.2 + 30.0 * rng.uniform();
+            if day >= BULKY_FROM_DAY && bulky.uniform() < 0.4 {
+                weight = 20.0 + 40.0 * bulky.uniform();
+            }
+            let _ = writeln!(body, "{id},{},{region},{carrier},{weight:.1},{predicted}", rfc3339(ts));
             if rng.uniform() < 0.98 {
                 // A late parcel is known late only once its promised time has passed.
                 let delay = if outcome == "late" {
@@ -306,7 +369,11 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
                 day + 1,
                 a.days,
                 &rfc3339(t)[..10],
-                if day >= 12 { "  north-east error now about 25%" } else { "" }
+                match day {
+                    d if d >= BULKY_FROM_DAY => "  north-east error now about 25%; heavier parcels from a new customer",
+                    d if d >= 12 => "  north-east error now about 25%",
+                    _ => "",
+                }
             );
             print!("{}", table(&snap));
             println!();

@@ -10,8 +10,7 @@ use serde::Serialize;
 
 use super::cli::InputShiftArgs;
 use super::error::CliError;
-use crate::estimate::kernel::{self, KernelError, Points, Pooled};
-use crate::estimate::ks;
+use crate::estimate::kernel::{self, KernelError, Points, TwoSampleSettings};
 use crate::ingest::points::{read_points, subsample, Coder};
 use crate::ingest::{DecodeError, Format};
 
@@ -107,46 +106,28 @@ pub fn main(a: &InputShiftArgs) -> anyhow::Result<()> {
     let current = subsample(&current_all, max, a.seed.wrapping_add(1));
     let data = |file: &Path, source| ShiftError::Data { file: file.display().to_string(), source };
     let scale = kernel::standardiser(&reference, &a.columns).map_err(|e| data(&a.reference, e))?;
-    let pooled = Pooled::new(&reference, &current, &scale).map_err(|e| data(&a.current, e))?;
-    let (bandwidth, rule) = match a.bandwidth {
-        Some(s) => (s, "given"),
-        None => (
-            pooled.median_distance().map_err(|e| data(&a.current, e))?,
-            "median pairwise distance of the pooled sample",
-        ),
-    };
     lap("read");
-    let gram = pooled.gram(bandwidth).map_err(|e| data(&a.current, e))?;
-    lap("bandwidth and gram");
-    let mmd = gram.mmd();
+    let settings = TwoSampleSettings {
+        bandwidth: a.bandwidth,
+        permutations: a.permutations,
+        null_draws: a.null_draws as usize,
+        seed: a.seed,
+    };
+    let t = kernel::two_sample(&reference, &current, &scale, settings, lap).map_err(|e| data(&a.current, e))?;
     let delta = a.confidence.delta();
-    let permutation = (a.permutations > 0).then(|| {
-        let p = gram.permutation_p(mmd.unbiased, a.permutations, a.seed.wrapping_add(2));
-        Test { p_value: p, shifted: p <= delta }
-    });
-    lap("permutation");
-    let spectrum = gram.centred_spectrum().map_err(|e| data(&a.current, e))?;
-    lap("spectrum");
-    let sp = kernel::spectral_test(
-        &spectrum,
-        pooled.m,
-        pooled.n,
-        mmd.unbiased,
-        a.null_draws as usize,
-        a.seed.wrapping_add(3),
-    );
-    lap("spectral null");
+    let permutation = t.permutation_p.map(|p| Test { p_value: p, shifted: p <= delta });
+    let sp = &t.spectral;
     let univariate = a
         .columns
         .iter()
-        .enumerate()
-        .map(|(d, name)| {
-            let col = |p: &Points| -> Vec<f64> { (0..p.len()).map(|i| p.numeric[i * p.dims + d]).collect() };
-            let r = ks::two_sample(&col(&reference), &col(&current));
-            Univariate { column: name.clone(), ks_statistic: r.statistic, ks_p_value: r.p_value, ks_exact: r.exact }
+        .zip(&t.ks)
+        .map(|(name, r)| Univariate {
+            column: name.clone(),
+            ks_statistic: r.statistic,
+            ks_p_value: r.p_value,
+            ks_exact: r.exact,
         })
         .collect();
-    lap("ks");
     let report = Report {
         n_reference: reference.len(),
         n_current: current.len(),
@@ -154,12 +135,12 @@ pub fn main(a: &InputShiftArgs) -> anyhow::Result<()> {
         rows_current: current_all.len(),
         columns: a.columns.clone(),
         categorical: a.categorical.clone(),
-        bandwidth,
-        bandwidth_rule: rule,
+        bandwidth: t.bandwidth,
+        bandwidth_rule: if t.bandwidth_given { "given" } else { "median pairwise distance of the pooled sample" },
         confidence: a.confidence.level(),
         seed: a.seed,
-        mmd2_unbiased: mmd.unbiased,
-        mmd2_biased: mmd.biased,
+        mmd2_unbiased: t.mmd.unbiased,
+        mmd2_biased: t.mmd.biased,
         tests: Tests {
             permutation,
             spectral: SpectralOut {

@@ -216,6 +216,53 @@ fn sla_rules(out: &mut String, m: &ModelConfig) {
     });
 }
 
+/// The input-shift rules: a ticket on a look that rejects, a page on the latched alarm (label
+/// free, so never held back by label coverage), a ticket when the alarm's pool is used up.
+fn input_shift_rules(out: &mut String, m: &ModelConfig) {
+    let Some(sh) = &m.input_shift else { return };
+    let name = &m.name;
+    let wname = &sh.window.name;
+    let delta = sh.confidence.delta();
+    let test = if sh.permutations > 0 { "permutation" } else { "spectral" };
+    write_rule(out, &Rule {
+        alert: "RiskboundInputsShifted",
+        labels: vec![("model", name.clone()), ("window", wname.clone())],
+        expr: format!("riskbound_input_shift_shifted{{model=\"{name}\",window=\"{wname}\",test=\"{test}\"}} == 1"),
+        for_: Some("0s"),
+        severity: "ticket",
+        summary: format!("{name}/{wname}: the inputs differ from the reference ({test} test)"),
+        description: format!(
+            "The latest look's {test} test of window {wname} against the reference {} has p <= {delta:.3e}. A per-look test: the daemon looks again every {}, so across looks its false alarms add up. A shift of the inputs is not a rise of the risk: it can be harmless, and a harmful change can leave the inputs alone. A ticket; the input-shift alarm pages.",
+            sh.reference_file.file_name().map_or_else(|| sh.reference_file.display().to_string(), |f| f.to_string_lossy().into_owned()),
+            prom_duration((sh.every_ms / 1000).max(1) as u64)
+        ),
+    });
+    if sh.alarm.is_none() {
+        return;
+    }
+    write_rule(out, &Rule {
+        alert: "RiskboundInputShiftSinceReset",
+        labels: vec![("model", name.clone())],
+        expr: format!("riskbound_alarm_firing{{model=\"{name}\",test=\"input-shift\"}} == 1"),
+        // The alarm latches and its guarantee is its own: waiting adds delay, not certainty.
+        for_: Some("0s"),
+        severity: "page",
+        summary: format!("{name}: the inputs have moved away from the reference since the last reset"),
+        description: format!(
+            "The sequential kernel two-sample test by betting reached 1/delta. Anytime-valid: P(this fires while the inputs stay distributed as the reference) <= {delta:.3e} over the whole deployment, however often it is checked. Assumes the reference rows and the sampled predictions are each i.i.d. Label free: it says the inputs changed, not that the risk rose. Latched until `riskbound reset {name}`."
+        ),
+    });
+    write_rule(out, &Rule {
+        alert: "RiskboundInputShiftPoolUsedUp",
+        labels: vec![("model", name.clone())],
+        expr: format!("riskbound_input_shift_alarm_pool_left{{model=\"{name}\"}} == 0"),
+        for_: Some("0s"),
+        severity: "ticket",
+        summary: format!("{name}: the input-shift alarm has paired every reference point"),
+        description: "Each reference point is paired with one prediction at most, so the alarm gathers no more evidence: give a larger reference, or a lower input_shift.alarm.sample_rate, and restart.".into(),
+    });
+}
+
 fn model_rules(out: &mut String, m: &ModelConfig) {
     let name = &m.name;
     let _ = writeln!(out, "  - name: riskbound-{name}\n    rules:");
@@ -223,6 +270,7 @@ fn model_rules(out: &mut String, m: &ModelConfig) {
         let _ = writeln!(out, "      # no sla configured: no risk alerts for this model");
     }
     sla_rules(out, m);
+    input_shift_rules(out, m);
     let stall = m.alerts.stalled_after.as_secs();
     write_rule(out, &Rule {
         alert: "RiskboundIngestStalled",

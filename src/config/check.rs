@@ -82,6 +82,96 @@ impl Checker {
         }
     }
 
+    /// An integer setting `key`.`what` in [lo, hi], `default` when absent or out of range (an
+    /// issue then).
+    pub(super) fn ranged(
+        &mut self,
+        v: &Option<Spanned<i64>>,
+        key: &str,
+        what: &str,
+        lo: i64,
+        hi: i64,
+        default: i64,
+    ) -> usize {
+        match v {
+            None => default as usize,
+            Some(x) if (lo..=hi).contains(&x.value) => x.value as usize,
+            Some(x) => {
+                self.push(x, &format!("{key}.{what}"), format!("must lie in [{lo}, {hi}], got {}", x.value));
+                default as usize
+            }
+        }
+    }
+
+    /// A list of column names at `key`: none empty, none named twice in `seen` (the names of
+    /// the section so far), which it extends.
+    pub(super) fn column_list(
+        &mut self,
+        list: &Option<Vec<Spanned<String>>>,
+        key: &str,
+        seen: &mut Vec<String>,
+    ) -> Vec<String> {
+        let mut out = Vec::new();
+        for n in list.iter().flatten() {
+            if n.value.trim().is_empty() {
+                self.push(n, key, "column names must not be empty");
+            } else if seen.contains(&n.value) {
+                self.push(n, key, format!("duplicate column {:?}", n.value));
+            } else {
+                seen.push(n.value.clone());
+                out.push(n.value.clone());
+            }
+        }
+        out
+    }
+
+    /// The format of a reference file: `format` (at `key`.format) if given, else by the file's
+    /// extension (an error at `file_at` when it tells nothing).
+    pub(super) fn reference_format(
+        &mut self,
+        format: Option<&Spanned<String>>,
+        file_at: &Spanned<String>,
+        key: &str,
+        file: &Path,
+    ) -> Option<crate::ingest::Format> {
+        use crate::ingest::Format;
+        match format {
+            Some(f) => Format::parse(&f.value).or_else(|| {
+                self.push(f, &format!("{key}.format"), format!("{:?} is not csv or jsonl", f.value));
+                None
+            }),
+            None => Format::from_path(file).or_else(|| {
+                self.push(
+                    file_at,
+                    &format!("{key}.file"),
+                    "cannot tell the format from the extension; add format: csv or jsonl",
+                );
+                None
+            }),
+        }
+    }
+
+    /// Opens a reference file named at `at`. `None` after an error, or when it cannot be read
+    /// away from the replica (the fleet view), where references are not needed.
+    pub(super) fn open_reference(&mut self, at: &Spanned<String>, key: &str, file: &Path) -> Option<std::fs::File> {
+        // A regular file only: a device or FIFO named here would block the config load.
+        let opened = match std::fs::metadata(file).map(|m| m.is_file()) {
+            Ok(false) => {
+                self.push(at, key, format!("{} is not a regular file", file.display()));
+                return None;
+            }
+            _ => std::fs::File::open(file),
+        };
+        match opened {
+            Ok(f) => Some(f),
+            Err(_) if !self.check_dirs => None,
+            Err(e) => {
+                self.push(at, key, format!("cannot read {}: {e}", file.display()));
+                None
+            }
+        }
+    }
+
     pub(super) fn duration_ms(&mut self, raw: &Spanned<String>, key: &str) -> Option<i64> {
         match parse_duration(&raw.value) {
             Ok(d) => Some(d.as_millis().min(i64::MAX as u128) as i64),

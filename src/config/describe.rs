@@ -110,7 +110,53 @@ impl Config {
                     );
                 }
             }
+            if let Some(sh) = &m.input_shift {
+                s += &input_shift_lines(sh);
+            }
         }
         s
     }
+}
+
+/// The input-shift section in words, with its cautions.
+fn input_shift_lines(sh: &InputShiftConfig) -> String {
+    let window = match sh.window.kind {
+        WindowKind::Last(n) => format!("the newest {n} predictions"),
+        WindowKind::SpanMs(ms) => format!("the predictions within {} s of the newest", ms / 1000),
+    };
+    let r = &sh.reference;
+    let mut s = format!(
+        "  input shift: window {} ({window}) against reference {} ({} rows, {} tested; columns {}{}{}), a look every {} s of event time; \
+         permutation test ({} permutations, exact level) and spectral test (asymptotic level) at level {:.3e}; \
+         at least {} points, at most {} per side\n",
+        sh.window.name,
+        sh.reference_file.display(),
+        r.rows,
+        r.tested.len(),
+        sh.numeric.join(","),
+        if sh.categorical.is_empty() { "" } else { "; categorical " },
+        sh.categorical.join(","),
+        sh.every_ms / 1000,
+        sh.permutations,
+        sh.confidence.delta(),
+        sh.min_points,
+        sh.max_points,
+    );
+    match (&sh.alarm, &r.alarm) {
+        (Some(a), Some(ar)) => {
+            s += &format!(
+            "  input-shift alarm (anytime, false with probability <= {:.3e}): {} calibration rows, bandwidth {:.6}, \
+                 {} reference points to pair (each once), sample rate {}, witness from {} past pairs\n",
+            sh.confidence.delta(),
+            a.calibration,
+            ar.sigma,
+            ar.pool.len(),
+            a.sample_rate,
+            a.memory
+        )
+        }
+        _ => s += "  input-shift alarm: off\n",
+    }
+    s += "  caution: a shift of the inputs is not a rise of the risk; the reference must share no rows with the window\n";
+    s
 }

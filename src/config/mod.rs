@@ -25,6 +25,7 @@ mod alerts;
 mod check;
 mod describe;
 mod http;
+mod input_shift;
 mod model;
 mod raw;
 mod settings;

@@ -38,6 +38,40 @@ pub(super) struct RawModel {
     pub(super) alerts: Option<Spanned<RawAlerts>>,
     pub(super) slices: Option<Spanned<RawSlices>>,
     pub(super) max_samples: Option<Spanned<i64>>,
+    pub(super) input_shift: Option<Spanned<RawInputShift>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(super) struct RawInputShift {
+    pub(super) reference: Spanned<RawShiftReference>,
+    pub(super) columns: Option<Vec<Spanned<String>>>,
+    pub(super) categorical: Option<Vec<Spanned<String>>>,
+    pub(super) window: Spanned<RawWindow>,
+    pub(super) every: Option<Spanned<String>>,
+    pub(super) min_points: Option<Spanned<i64>>,
+    pub(super) max_points: Option<Spanned<i64>>,
+    pub(super) permutations: Option<Spanned<i64>>,
+    pub(super) bandwidth: Option<Spanned<f64>>,
+    pub(super) confidence: Option<Spanned<f64>>,
+    pub(super) seed: Option<Spanned<u64>>,
+    pub(super) alarm: Option<Spanned<RawShiftAlarm>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(super) struct RawShiftReference {
+    pub(super) file: Spanned<String>,
+    pub(super) format: Option<Spanned<String>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(super) struct RawShiftAlarm {
+    pub(super) enabled: Option<Spanned<bool>>,
+    pub(super) sample_rate: Option<Spanned<f64>>,
+    pub(super) memory: Option<Spanned<i64>>,
+    pub(super) calibration: Option<Spanned<i64>>,
 }
 
 #[derive(Deserialize)]

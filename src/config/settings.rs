@@ -53,6 +53,78 @@ pub struct ModelConfig {
     /// The most samples of a window the methods that need the samples themselves (betting,
     /// the slice search) read: a seeded uniform subsample above it.
     pub max_samples: u64,
+    /// Label-free tests of whether the model's inputs moved away from a reference, if configured.
+    pub input_shift: Option<InputShiftConfig>,
+}
+
+/// A model's label-free input-shift tests: a reference sample of its inputs (read when the
+/// config is loaded), the feature columns read from its prediction files, a window of recent
+/// predictions tested against the reference every `every_ms` of event time, and an
+/// anytime-valid alarm fed with every sampled prediction.
+#[derive(Clone, Debug)]
+pub struct InputShiftConfig {
+    pub reference_file: PathBuf,
+    pub numeric: Vec<String>,
+    pub categorical: Vec<String>,
+    /// Where each of `numeric` then `categorical` sits among a prediction record's feature
+    /// cells (slice columns first, then the shift columns slices do not already read).
+    pub cells: Vec<usize>,
+    /// The window tested (by prediction time; never `mature`: no labels are involved).
+    pub window: WindowConfig,
+    /// Event time between two looks.
+    pub every_ms: i64,
+    /// Fewer current points than this make a look inconclusive.
+    pub min_points: usize,
+    /// Above this many points per side, a subsample.
+    pub max_points: usize,
+    pub permutations: usize,
+    pub bandwidth: Option<f64>,
+    pub confidence: Confidence,
+    pub seed: u64,
+    pub alarm: Option<ShiftAlarmConfig>,
+    pub reference: std::sync::Arc<ShiftReference>,
+}
+
+/// The draws of the null spectrum per look.
+pub const SHIFT_NULL_DRAWS: usize = 10_000;
+
+/// The sequential alarm's settings.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ShiftAlarmConfig {
+    /// The share of predictions paired with a reference point (by a hash of the request id).
+    pub sample_rate: f64,
+    /// Past pairs the witness is built from.
+    pub memory: usize,
+    /// Reference points set aside for the standardisation and bandwidth, never paired.
+    pub calibration: usize,
+}
+
+/// The reference as the tests use it.
+#[derive(Clone, Debug)]
+pub struct ShiftReference {
+    /// Rows in the file.
+    pub rows: usize,
+    /// The per-look tests' reference: a seeded subsample of at most max_points rows.
+    pub tested: crate::estimate::kernel::Points,
+    /// Mean and standard deviation (ddof 1) per numeric column, of `tested`.
+    pub scale: Vec<(f64, f64)>,
+    /// The reference's categorical values and their codes.
+    pub coder: crate::ingest::points::Coder,
+    pub alarm: Option<AlarmReference>,
+}
+
+/// The alarm's share of the reference.
+#[derive(Clone, Debug)]
+pub struct AlarmReference {
+    /// Standardisation from the calibration rows.
+    pub scale: Vec<(f64, f64)>,
+    /// The kernel's bandwidth: given, or the median pairwise distance of the calibration rows.
+    pub sigma: f64,
+    /// The rows to pair, in a seeded random order, standardised; each is used once.
+    pub pool: Vec<crate::estimate::kernel_betting::Point>,
+    /// Identifies pool, scale and bandwidth: the stored alarm keeps its place in the pool only
+    /// while they are the same.
+    pub fingerprint: String,
 }
 
 /// The least `state_max_size`: the schema and one batch file's transaction need room.
@@ -237,6 +309,25 @@ impl ReferenceConfig {
 }
 
 impl ModelConfig {
+    /// The feature columns prediction records carry: the slice search's (categorical, then
+    /// numeric), then the input-shift columns the slices do not already read.
+    pub fn feature_columns(&self) -> Vec<String> {
+        let mut cols = self.slices.as_ref().map(SlicesConfig::columns).unwrap_or_default();
+        if let Some(sh) = &self.input_shift {
+            for c in sh.numeric.iter().chain(&sh.categorical) {
+                if !cols.contains(c) {
+                    cols.push(c.clone());
+                }
+            }
+        }
+        cols
+    }
+
+    /// How many of the feature cells are the slice search's.
+    pub fn slice_feature_count(&self) -> usize {
+        self.slices.as_ref().map_or(0, |s| s.categorical.len() + s.numeric.len())
+    }
+
     /// What the model's anytime tracker computes.
     pub fn tracker_spec(&self) -> TrackerSpec {
         let delta = self.confidence.delta();

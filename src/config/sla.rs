@@ -116,44 +116,12 @@ impl Checker {
                 None
             }
         };
-        let format = match &r.format {
-            None => Format::from_path(&file),
-            Some(f) => Format::parse(&f.value).or_else(|| {
-                self.push(f, &format!("{key}.format"), format!("{:?} is not csv or jsonl", f.value));
-                None
-            }),
-        };
-        let Some(format) = format else {
-            if r.format.is_none() {
-                self.push(
-                    &r.file,
-                    &format!("{key}.file"),
-                    "cannot tell the format from the extension; add format: csv or jsonl",
-                );
-            }
-            return None;
-        };
+        let format = self.reference_format(r.format.as_ref(), &r.file, key, &file)?;
         if self.issues.len() > start {
             return None;
         }
         let source = source?;
-        // A regular file only: a device or FIFO named here would block the config load.
-        let opened = match std::fs::metadata(&file).map(|m| m.is_file()) {
-            Ok(false) => {
-                self.push(&r.file, &format!("{key}.file"), format!("{} is not a regular file", file.display()));
-                return None;
-            }
-            _ => std::fs::File::open(&file),
-        };
-        let opened = match opened {
-            Ok(f) => f,
-            // Read away from the replica (the fleet view), where the reference is not needed.
-            Err(_) if !self.check_dirs => return None,
-            Err(e) => {
-                self.push(&r.file, &format!("{key}.file"), format!("cannot read {}: {e}", file.display()));
-                return None;
-            }
-        };
+        let opened = self.open_reference(&r.file, &format!("{key}.file"), &file)?;
         let input = Input { file_label: file.display().to_string(), format, source, loss, group_by: None };
         let mut summary = if method.needs_losses() {
             crate::estimate::LossSummary::keeping_losses(loss.max())

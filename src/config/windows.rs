@@ -23,33 +23,7 @@ impl Checker {
             } else if !names.insert(w.name.value.clone()) {
                 self.push(&w.name, &format!("{wk}.name"), format!("duplicate window name {:?}", w.name.value));
             }
-            let kind = match (&w.last, &w.span) {
-                (Some(n), None) if n.value >= 1 => Some(WindowKind::Last(n.value as u64)),
-                (Some(n), None) => {
-                    self.push(n, &format!("{wk}.last"), format!("must be at least 1, got {}", n.value));
-                    None
-                }
-                (None, Some(s)) => match self.duration_ms(s, &format!("{wk}.span")) {
-                    Some(ms) if ms >= 1000 => Some(WindowKind::SpanMs(ms)),
-                    Some(_) => {
-                        self.push(
-                            s,
-                            &format!("{wk}.span"),
-                            "must be at least 1s (cohorts count predictions per second)",
-                        );
-                        None
-                    }
-                    None => None,
-                },
-                (Some(n), Some(_)) => {
-                    self.push(n, &wk, "give last or span, not both");
-                    None
-                }
-                (None, None) => {
-                    self.push(&w.name, &wk, "give last: N (newest N samples) or span: DURATION");
-                    None
-                }
-            };
+            let kind = self.window_kind(w, &wk);
             if let Some(kind) = kind {
                 windows.push(WindowConfig {
                     name: w.name.value.clone(),
@@ -59,5 +33,34 @@ impl Checker {
             }
         }
         windows
+    }
+}
+
+impl Checker {
+    /// Exactly one of `last: N` (N ≥ 1) and `span: DURATION` (≥ 1 s) of the window at `wk`.
+    pub(super) fn window_kind(&mut self, w: &RawWindow, wk: &str) -> Option<WindowKind> {
+        match (&w.last, &w.span) {
+            (Some(n), None) if n.value >= 1 => Some(WindowKind::Last(n.value as u64)),
+            (Some(n), None) => {
+                self.push(n, &format!("{wk}.last"), format!("must be at least 1, got {}", n.value));
+                None
+            }
+            (None, Some(s)) => match self.duration_ms(s, &format!("{wk}.span")) {
+                Some(ms) if ms >= 1000 => Some(WindowKind::SpanMs(ms)),
+                Some(_) => {
+                    self.push(s, &format!("{wk}.span"), "must be at least 1s (cohorts count predictions per second)");
+                    None
+                }
+                None => None,
+            },
+            (Some(n), Some(_)) => {
+                self.push(n, wk, "give last or span, not both");
+                None
+            }
+            (None, None) => {
+                self.push(&w.name, wk, "give last: N (newest N samples) or span: DURATION");
+                None
+            }
+        }
     }
 }

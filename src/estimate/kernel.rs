@@ -50,6 +50,24 @@ impl Points {
     pub fn is_empty(&self) -> bool {
         self.len() == 0
     }
+    /// The points at `idx`, in that order.
+    pub fn select(&self, idx: &[usize]) -> Points {
+        let mut out = Points { dims: self.dims, cats: self.cats, ..Points::default() };
+        for &i in idx {
+            out.numeric.extend_from_slice(self.num(i));
+            out.categorical.extend_from_slice(self.cat(i));
+        }
+        out
+    }
+
+    /// Point `i` standardised by `scale` (mean, standard deviation per numeric column).
+    pub fn standardised(&self, i: usize, scale: &[(f64, f64)]) -> super::kernel_betting::Point {
+        super::kernel_betting::Point {
+            numeric: self.num(i).iter().zip(scale).map(|(x, (mu, sd))| (x - mu) / sd).collect(),
+            categorical: self.cat(i).to_vec(),
+        }
+    }
+
     fn num(&self, i: usize) -> &[f64] {
         &self.numeric[i * self.dims..(i + 1) * self.dims]
     }
@@ -390,6 +408,68 @@ pub fn spectral_test(spectrum: &Spectrum, m: usize, n: usize, mmd_unbiased: f64,
         }
     }
     Spectral { statistic, p_value: (1 + exceed) as f64 / (1 + draws) as f64, eigenvalues: used, draws }
+}
+
+/// What a two-sample run asks for.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct TwoSampleSettings {
+    /// σ of the kernel, or None for the median heuristic.
+    pub bandwidth: Option<f64>,
+    /// Relabellings of the permutation test; 0 runs none.
+    pub permutations: usize,
+    /// Simulated draws of the spectral null.
+    pub null_draws: usize,
+    pub seed: u64,
+}
+
+/// Every statistic and p-value of one reference-against-current comparison.
+#[derive(Clone, Debug, PartialEq)]
+pub struct TwoSample {
+    pub m: usize,
+    pub n: usize,
+    pub bandwidth: f64,
+    /// True when σ was given, false when it is the pooled median distance.
+    pub bandwidth_given: bool,
+    pub mmd: Mmd,
+    pub permutation_p: Option<f64>,
+    pub spectral: Spectral,
+    /// Per numeric column, in order.
+    pub ks: Vec<super::ks::Ks>,
+}
+
+/// The whole comparison of the command and of the daemon's per-look test: standardise, pool,
+/// bandwidth, Gram matrix, MMD², the permutation and spectral tests, and a KS test per numeric
+/// column. `lap` is called after each stage with its name (timings for the benchmark).
+pub fn two_sample(
+    reference: &Points,
+    current: &Points,
+    scale: &[(f64, f64)],
+    s: TwoSampleSettings,
+    mut lap: impl FnMut(&str),
+) -> Result<TwoSample, KernelError> {
+    let pooled = Pooled::new(reference, current, scale)?;
+    let (bandwidth, bandwidth_given) = match s.bandwidth {
+        Some(b) => (b, true),
+        None => (pooled.median_distance()?, false),
+    };
+    let gram = pooled.gram(bandwidth)?;
+    lap("bandwidth and gram");
+    let mmd = gram.mmd();
+    let permutation_p =
+        (s.permutations > 0).then(|| gram.permutation_p(mmd.unbiased, s.permutations, s.seed.wrapping_add(2)));
+    lap("permutation");
+    let spectrum = gram.centred_spectrum()?;
+    lap("spectrum");
+    let spectral = spectral_test(&spectrum, pooled.m, pooled.n, mmd.unbiased, s.null_draws, s.seed.wrapping_add(3));
+    lap("spectral null");
+    let ks = (0..reference.dims)
+        .map(|d| {
+            let col = |p: &Points| -> Vec<f64> { (0..p.len()).map(|i| p.numeric[i * p.dims + d]).collect() };
+            super::ks::two_sample(&col(reference), &col(current))
+        })
+        .collect();
+    lap("ks");
+    Ok(TwoSample { m: pooled.m, n: pooled.n, bandwidth, bandwidth_given, mmd, permutation_p, spectral, ks })
 }
 
 #[cfg(test)]

@@ -22,7 +22,7 @@
 use std::collections::VecDeque;
 
 /// One standardised point: numeric coordinates and categorical codes.
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Point {
     pub numeric: Vec<f64>,
     pub categorical: Vec<u32>,
@@ -41,8 +41,8 @@ pub const BETS: [f64; 6] = [0.025, 0.05, 0.1, 0.2, 0.4, 0.8];
 /// No bet before this many past pairs: a witness from a handful of pairs is mostly noise.
 pub const BET_AFTER: usize = 10;
 
-/// The sequential two-sample test's state.
-#[derive(Clone, Debug, PartialEq)]
+/// The sequential two-sample test's state (serialised whole for the daemon's durable state).
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct ShiftBetting {
     /// 1/(2σ²) of the Gaussian kernel.
     inv_two_sigma2: f64,
@@ -113,6 +113,13 @@ impl ShiftBetting {
     /// The pair count at which the evidence first reached 1/δ (latched).
     pub fn fired_at(&self) -> Option<u64> {
         self.fired_at
+    }
+
+    /// True when `other` was made with the same bandwidth, memory and δ (its evidence is
+    /// evidence for the same test).
+    pub fn same_test(&self, other: &ShiftBetting) -> bool {
+        (self.inv_two_sigma2, self.memory, self.log_threshold)
+            == (other.inv_two_sigma2, other.memory, other.log_threshold)
     }
 
     pub fn pairs(&self) -> u64 {

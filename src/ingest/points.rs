@@ -9,7 +9,7 @@ use crate::estimate::kernel::Points;
 
 /// Codes categorical values as integers, shared by the samples being compared so that equal
 /// strings get equal codes.
-#[derive(Debug, Default)]
+#[derive(Clone, Debug, Default)]
 pub struct Coder {
     codes: Vec<HashMap<Vec<u8>, u32>>,
 }
@@ -22,6 +22,21 @@ impl Coder {
         let map = &mut self.codes[column];
         let next = map.len() as u32;
         *map.entry(value.to_vec()).or_insert(next)
+    }
+
+    /// The code of `value` without adding it: a value the reference never had gets a code of
+    /// its own from a hash (high bit set, so it never equals a reference code; two unseen values
+    /// share one only on a 31-bit hash collision, which only understates a difference).
+    pub fn lookup(&self, column: usize, value: &[u8]) -> u32 {
+        if let Some(&c) = self.codes.get(column).and_then(|m| m.get(value)) {
+            return c;
+        }
+        let mut h: u32 = 0x811c_9dc5;
+        for b in value {
+            h ^= u32::from(*b);
+            h = h.wrapping_mul(0x0100_0193);
+        }
+        h | 0x8000_0000
     }
 }
 
@@ -82,10 +97,5 @@ pub fn subsample(points: &Points, max: usize, seed: u64) -> Points {
     }
     let mut keep = order[..max].to_vec();
     keep.sort_unstable();
-    let mut out = Points { dims: points.dims, cats: points.cats, ..Points::default() };
-    for i in keep {
-        out.numeric.extend_from_slice(&points.numeric[i * points.dims..(i + 1) * points.dims]);
-        out.categorical.extend_from_slice(&points.categorical[i * points.cats..(i + 1) * points.cats]);
-    }
-    out
+    points.select(&keep)
 }

@@ -4,6 +4,7 @@
 //! summarised and bounded, which export/ renders. The only mutable record state lives here, in
 //! [`store::Store`].
 
+pub mod shift;
 pub mod store;
 
 use crate::config::{DecideOn, ModelConfig, SlaConfig, WindowGuarantee};
@@ -304,6 +305,9 @@ pub struct ModelSnapshot {
     pub last_commit_ms: Option<i64>,
     /// Whether label delays differ by outcome, on the newest kept labelled samples.
     pub delay_dependence: DelayDependence,
+    /// The label-free input-shift tests, if configured (filled by the pipeline from its latest
+    /// look: a look is too costly for every publish).
+    pub input_shift: Option<shift::ShiftSnapshot>,
 }
 
 /// The newest labelled samples (by prediction time) the delay-dependence test reads: enough for
@@ -438,5 +442,6 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
         last_commit_ms: store.last_commit_ms(&model.name)?,
         counters,
         delay_dependence,
+        input_shift: None,
     })
 }

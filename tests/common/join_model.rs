@@ -158,6 +158,7 @@ pub fn model_config() -> ModelConfig {
         alerts: Default::default(),
         slices: None,
         max_samples: riskbound::config::DEFAULT_MAX_SAMPLES,
+        input_shift: None,
     }
 }
 

@@ -31,6 +31,8 @@ pub(super) struct Joins {
     /// Predictions whose label_wait it closed, in prediction-time order: the loss, or `None`
     /// when no label came. The anytime tracker takes them in this order.
     pub(super) matured: Vec<Option<f64>>,
+    /// New predictions the input-shift alarm pairs (sampled), with their feature cells.
+    pub(super) shift_fresh: Vec<FreshPoint>,
 }
 
 /// The loss of a labelled prediction, or why there is none.
@@ -62,9 +64,11 @@ pub(super) fn check_features(model: &ModelConfig, rec: &Record) -> Result<(), (R
     Ok(())
 }
 
-/// The features of a record as stored: a JSON array of strings, or NULL without slices.
-pub(super) fn features_json(rec: &Record) -> Option<String> {
-    (!rec.features.is_empty()).then(|| serde_json::to_string(&rec.features).expect("strings serialise"))
+/// The slice features of a record as stored: a JSON array of strings, or NULL without slices
+/// (the input-shift cells after them are stored apart, in `shift_point`).
+pub(super) fn features_json(model: &ModelConfig, rec: &Record) -> Option<String> {
+    let slice = &rec.features[..model.slice_feature_count().min(rec.features.len())];
+    (!slice.is_empty()).then(|| serde_json::to_string(slice).expect("strings serialise"))
 }
 
 /// Checks a value cell when it arrives, so a bad row is rejected at its own line.
@@ -180,6 +184,7 @@ impl Store {
         };
         Self::prune(&tx, m, ranges.keep_from())?;
         out.tracker_restarted = Self::advance_tracker(&tx, model, &joins.matured, now_ms)?;
+        Self::advance_shift_alarm(&tx, model, &mut joins.shift_fresh)?;
         tx.commit()?;
         // Only once the commit stands: the ranges never run ahead of the database.
         self.ranges.get_mut().insert(m.to_string(), ranges);
@@ -288,7 +293,7 @@ impl Store {
             None if late => (EXPIRED, None),
             None => (AWAITING, None),
         };
-        let features = features_json(rec);
+        let features = features_json(model, rec);
         let inserted = tx
             .prepare_cached(
                 "INSERT INTO pred (model, id, t_pred, value, state, label, features) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)
@@ -304,6 +309,7 @@ impl Store {
             return Ok(Err(RejectReason::DuplicatePrediction));
         }
         *joins.fresh.counted.entry((rec.time_ms.div_euclid(1000), level_of(&rec.id))).or_default() += 1;
+        Self::insert_shift_point(tx, model, rec, &mut joins.shift_fresh)?;
         if state == EXPIRED {
             joins.expired += 1;
             joins.matured.push(None);
@@ -432,7 +438,7 @@ pub(super) fn check_row(model: &ModelConfig, kind: Kind, name: &str, rec: &Recor
         let message = format!("{name}:{}: value {:?}: {reason}", rec.line, rec.value);
         return Err(Reject { line: rec.line, reason, message });
     }
-    if let Err((reason, what)) = check_features(model, rec) {
+    if let Err((reason, what)) = check_features(model, rec).and_then(|()| check_shift_cells(model, rec)) {
         let message = format!("{name}:{}: {what}", rec.line);
         return Err(Reject { line: rec.line, reason, message });
     }

@@ -21,12 +21,15 @@ use crate::loss::{self, LossSpec};
 mod ingest;
 mod ranges;
 mod schema;
+mod shift;
 mod tracker;
 mod views;
 
 use ranges::*;
 pub use ranges::{level_of, sample_level, LEVELS, SAMPLE_SEED};
 use schema::*;
+use shift::*;
+pub use shift::{points_of, ShiftAlarmView, ShiftRows};
 pub use views::{DirectWindow, WindowView};
 
 /// Upper bounds (seconds) of the label-delay histogram buckets: a minute to two weeks.

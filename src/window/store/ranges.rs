@@ -30,16 +30,20 @@ pub const SAMPLE_SEED: u64 = 0x5eed_0f5a_3b1e;
 /// A prediction's sampling level, from its request id alone (never from its outcome or its
 /// arrival): FNV-1a of the id, mixed by SplitMix64's finaliser with the seed.
 pub fn level_of(id: &str) -> u8 {
+    id_hash(id, SAMPLE_SEED).leading_zeros().min(LEVELS as u32 - 1) as u8
+}
+
+/// A seeded 64-bit hash of a request id: FNV-1a of its bytes, mixed by SplitMix64's finaliser.
+pub(super) fn id_hash(id: &str, seed: u64) -> u64 {
     let mut h: u64 = 0xcbf2_9ce4_8422_2325;
     for b in id.as_bytes() {
         h ^= u64::from(*b);
         h = h.wrapping_mul(0x0000_0100_0000_01b3);
     }
-    let mut z = h ^ SAMPLE_SEED;
+    let mut z = h ^ seed;
     z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
     z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
-    z ^= z >> 31;
-    z.leading_zeros().min(LEVELS as u32 - 1) as u8
+    z ^ (z >> 31)
 }
 
 /// The lowest level whose subsample (every item at that level or above) holds at most `max`

@@ -31,6 +31,14 @@ CREATE TABLE IF NOT EXISTS model_meta (
 CREATE TABLE IF NOT EXISTS pred_count (
     model TEXT NOT NULL, sec INTEGER NOT NULL, level INTEGER NOT NULL DEFAULT 0, n INTEGER NOT NULL,
     PRIMARY KEY (model, sec, level)) WITHOUT ROWID;
+CREATE TABLE IF NOT EXISTS shift_point (
+    seq INTEGER PRIMARY KEY, model TEXT NOT NULL, t_pred INTEGER NOT NULL, level INTEGER NOT NULL,
+    cells TEXT NOT NULL);
+CREATE INDEX IF NOT EXISTS shift_point_time ON shift_point (model, t_pred);
+CREATE INDEX IF NOT EXISTS shift_point_level ON shift_point (model, level, t_pred);
+CREATE TABLE IF NOT EXISTS shift_alarm (
+    model TEXT PRIMARY KEY, fingerprint TEXT NOT NULL, next INTEGER NOT NULL, state TEXT,
+    unpaired INTEGER NOT NULL DEFAULT 0);
 CREATE TABLE IF NOT EXISTS tracker (
     model TEXT PRIMARY KEY, state TEXT, reset_ms INTEGER, resets INTEGER NOT NULL DEFAULT 0);
 ";

@@ -97,6 +97,9 @@ impl Store {
              ON CONFLICT (model) DO UPDATE SET state = NULL, reset_ms = ?2, resets = resets + 1",
             params![model, now_ms],
         )?;
+        // The input-shift alarm restarts its evidence but keeps its place in the reference
+        // pool: a reference point is never paired twice.
+        tx.execute("UPDATE shift_alarm SET state = NULL WHERE model = ?1", [model])?;
         tx.commit()?;
         Ok(())
     }
