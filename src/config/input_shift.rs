@@ -12,14 +12,14 @@ use crate::ingest::points::{read_points, subsample, Coder};
 const DEFAULT_EVERY_MS: i64 = 3_600_000;
 
 impl Checker {
-    /// The input-shift section of model `k`. `features` are the feature columns prediction
-    /// records already carry (the slice search's); the shift columns are appended to them.
+    /// The input-shift section of model `k`; `slice_columns` are the feature columns the slice
+    /// search has prediction records carry (the shift columns are laid out after them).
     pub(super) fn input_shift(
         &mut self,
         at: &Spanned<RawInputShift>,
         k: &str,
         model_confidence: Confidence,
-        features: &mut Vec<String>,
+        slice_columns: Vec<String>,
     ) -> Option<InputShiftConfig> {
         let r = &at.value;
         let key = format!("{k}.input_shift");
@@ -115,16 +115,7 @@ impl Checker {
             a.calibration = calibration_rows(all.len(), &a);
             a
         });
-        let cells = numeric
-            .iter()
-            .chain(&categorical)
-            .map(|c| {
-                features.iter().position(|f| f == c).unwrap_or_else(|| {
-                    features.push(c.clone());
-                    features.len() - 1
-                })
-            })
-            .collect();
+        let (_, cells) = feature_layout(slice_columns, &[numeric.as_slice(), &categorical].concat());
         let reference = ShiftReference { rows: all.len(), tested, scale, coder, alarm: alarm_reference };
         Some(InputShiftConfig {
             reference_file: file,

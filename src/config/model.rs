@@ -161,8 +161,8 @@ impl Checker {
         };
 
         let max_samples = self.max_samples(raw.max_samples.as_ref(), slices.is_some(), &k);
-        let mut features = slices.as_ref().map(SlicesConfig::columns).unwrap_or_default();
-        let input_shift = raw.input_shift.as_ref().and_then(|s| self.input_shift(s, &k, confidence, &mut features));
+        let slice_columns = slices.as_ref().map(SlicesConfig::columns).unwrap_or_default();
+        let input_shift = raw.input_shift.as_ref().and_then(|s| self.input_shift(s, &k, confidence, slice_columns));
 
         if self.issues.len() > start {
             return None;

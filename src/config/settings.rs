@@ -85,6 +85,23 @@ pub struct InputShiftConfig {
     pub reference: std::sync::Arc<ShiftReference>,
 }
 
+/// The feature cells a prediction record carries: the slice search's columns (categorical,
+/// then numeric), then the input-shift columns the slices do not already read; and where each
+/// input-shift column sits among them. The one place that lays the cells out.
+pub fn feature_layout(slice_columns: Vec<String>, shift_columns: &[String]) -> (Vec<String>, Vec<usize>) {
+    let mut cols = slice_columns;
+    let cells = shift_columns
+        .iter()
+        .map(|c| {
+            cols.iter().position(|f| f == c).unwrap_or_else(|| {
+                cols.push(c.clone());
+                cols.len() - 1
+            })
+        })
+        .collect();
+    (cols, cells)
+}
+
 /// The draws of the null spectrum per look.
 pub const SHIFT_NULL_DRAWS: usize = 10_000;
 
@@ -309,18 +326,12 @@ impl ReferenceConfig {
 }
 
 impl ModelConfig {
-    /// The feature columns prediction records carry: the slice search's (categorical, then
-    /// numeric), then the input-shift columns the slices do not already read.
+    /// The feature columns prediction records carry (see [`feature_layout`]).
     pub fn feature_columns(&self) -> Vec<String> {
-        let mut cols = self.slices.as_ref().map(SlicesConfig::columns).unwrap_or_default();
-        if let Some(sh) = &self.input_shift {
-            for c in sh.numeric.iter().chain(&sh.categorical) {
-                if !cols.contains(c) {
-                    cols.push(c.clone());
-                }
-            }
-        }
-        cols
+        let slices = self.slices.as_ref().map(SlicesConfig::columns).unwrap_or_default();
+        let shift =
+            self.input_shift.as_ref().map(|s| [s.numeric.as_slice(), &s.categorical].concat()).unwrap_or_default();
+        feature_layout(slices, &shift).0
     }
 
     /// How many of the feature cells are the slice search's.

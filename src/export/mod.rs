@@ -2,6 +2,7 @@
 //! Prometheus metrics, and the HTTP server that serves them with health and readiness.
 
 pub mod fleet;
+mod input_shift;
 pub mod process;
 pub mod registry;
 pub mod server;

@@ -48,7 +48,7 @@ pub fn look_due(store: &Store, model: &ModelConfig, last: Option<&ShiftLook>) ->
 pub fn look(store: &Store, model: &ModelConfig, sh: &InputShiftConfig) -> Result<Option<ShiftLook>, StoreError> {
     let rows = store.shift_rows(&model.name, sh)?;
     let Some(at_ms) = rows.newest_ms else { return Ok(None) };
-    let current = points_of(sh, &rows.cells);
+    let current = points_of(sh, rows.cells.iter().map(Vec::as_slice));
     let n_current = current.len();
     let outcome = if n_current < sh.min_points {
         Err(format!("{n_current} points in the window's subsample, fewer than min_points {}", sh.min_points))

@@ -50,7 +50,7 @@ type AlarmRow = (String, i64, Option<String>, i64);
 /// Parses feature cells (numeric, then categorical, as the config orders them). Numeric cells
 /// were checked on arrival; a row whose cells no longer fit (a damaged or hand-edited state)
 /// is left out rather than let a NaN into every distance.
-pub fn points_of(sh: &InputShiftConfig, rows: &[Vec<String>]) -> Points {
+pub fn points_of<'a>(sh: &InputShiftConfig, rows: impl IntoIterator<Item = &'a [String]>) -> Points {
     let (dims, cats) = (sh.numeric.len(), sh.categorical.len());
     let mut out = Points { dims, cats, ..Points::default() };
     for cells in rows {
@@ -154,8 +154,7 @@ impl Store {
         let sh = model.input_shift.as_ref().expect("stored_alarm returned a state");
         let r = sh.reference.alarm.as_ref().expect("stored_alarm returned a state");
         fresh.sort_by_key(|p| p.0);
-        let rows: Vec<Vec<String>> = fresh.iter().map(|p| p.1.clone()).collect();
-        let current = points_of(sh, &rows);
+        let current = points_of(sh, fresh.iter().map(|p| p.1.as_slice()));
         for i in 0..current.len() {
             match r.pool.get(next) {
                 Some(x) => {
