@@ -21,6 +21,8 @@ fn main() -> ExitCode {
         Command::CheckConfig(a) => cmd::check_config::main(a),
         Command::Fleet(a) => cmd::fleet::main(a),
         Command::InputShift(a) => cmd::input_shift::main(a),
+        Command::Report(a) => cmd::report::main(a),
+        Command::Replay(a) => cmd::replay::main(a),
         Command::Demo(a) => cmd::demo::main(a),
     };
     match result {

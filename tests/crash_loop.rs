@@ -32,7 +32,14 @@ const SPOOL: usize = 500;
 
 fn config(dir: &TempDir, port: u16) -> std::path::PathBuf {
     let windows = format!("[ {{ name: all, last: 100000000 }}, {{ name: recent, last: {RECENT} }} ]");
-    common::simple_config(dir, port, "rescan_interval: 100ms", "crash", "    label_wait: 30d", &windows)
+    common::simple_config(
+        dir,
+        port,
+        "rescan_interval: 100ms\nhistory: { every: 10m, keep: 30d }",
+        "crash",
+        "    label_wait: 30d",
+        &windows,
+    )
 }
 
 /// Batch files to write, in order: (name, content).
@@ -106,6 +113,63 @@ fn check_against_oracle(m: &Metrics, oracle: &Oracle) {
     assert_eq!(m.get("riskbound_samples_labelled_total", &[("model", "crash")]), Some(all_n));
     let rejected: f64 = m.0.iter().filter(|((n, _), _)| n == "riskbound_rows_rejected_total").map(|(_, v)| v).sum();
     assert_eq!(rejected, 0.0, "a re-read file would show up as duplicate rows");
+}
+
+/// The history the kills left equals the one a replay of the same files writes, in the order
+/// they were taken: a point written twice (a kill between it and its file's commit) or lost
+/// would show. Returns how many points the report holds.
+fn history_replays_exactly(dir: &TempDir, cfg: &std::path::Path, archive: &std::path::Path) -> usize {
+    let run = |args: &[&str]| {
+        let out = std::process::Command::new(common::bin()).args(args).output().unwrap();
+        assert!(out.status.success(), "{args:?}: {}", String::from_utf8_lossy(&out.stderr));
+    };
+    let (first, second) = (dir.path("report.html"), dir.path("again.html"));
+    run(&["report", "--config", cfg.to_str().unwrap(), "--out", first.to_str().unwrap()]);
+    // The spool cleaner moved the older files into the archive: the list points there for them.
+    let list = dir.path("report.html.replay.tsv");
+    let text = std::fs::read_to_string(&list).unwrap();
+    let moved: String = text
+        .lines()
+        .map(|l| match l.rsplit_once('\t') {
+            Some((head, path)) if !l.starts_with('#') && !std::path::Path::new(path).exists() => {
+                let name = std::path::Path::new(path).file_name().unwrap();
+                format!("{head}\t{}\n", archive.join(name).display())
+            }
+            _ => format!("{l}\n"),
+        })
+        .collect();
+    std::fs::write(&list, moved).unwrap();
+    let state = dir.path("replayed");
+    run(&[
+        "replay",
+        "--config",
+        cfg.to_str().unwrap(),
+        "--files",
+        list.to_str().unwrap(),
+        "--state",
+        state.to_str().unwrap(),
+    ]);
+    run(&[
+        "report",
+        "--config",
+        cfg.to_str().unwrap(),
+        "--state",
+        state.to_str().unwrap(),
+        "--out",
+        second.to_str().unwrap(),
+    ]);
+    let numbers = |p: &std::path::Path| {
+        let html = std::fs::read_to_string(p).unwrap();
+        let start = html.find("<section id=\"numbers\">").unwrap();
+        let end = html[start..].find("</section>").unwrap() + start;
+        html[start..end].to_string()
+    };
+    let (a, b) = (numbers(&first), numbers(&second));
+    assert!(a == b, "the history after the kills differs from the replay's");
+    let points = a.split(" history points.").next().and_then(|h| h.rsplit(' ').next()).and_then(|n| n.parse().ok());
+    let points = points.expect("the report counts its points");
+    assert!(points > 10, "{points} history points");
+    points
 }
 
 #[test]
@@ -201,8 +265,9 @@ fn sigkill_at_random_moments_loses_and_duplicates_nothing() {
     });
     d.wait_files("crash", "prediction", batches as f64);
     check_against_oracle(&d.metrics(), &oracle);
+    let points = history_replays_exactly(&dir, &cfg, &archive);
     eprintln!(
-        "crash loop: {kills} kills ({behind} cut work in progress), {} files of {rows} predictions, {} labelled samples, all counts equal to the oracle",
+        "crash loop: {kills} kills ({behind} cut work in progress), {} files of {rows} predictions, {} labelled samples, all counts equal to the oracle; the report's {points} history points equal a replay's",
         files.len(),
         oracle.len()
     );

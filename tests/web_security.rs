@@ -56,6 +56,11 @@ fn tls_with_basic_auth() {
         assert!(r.starts_with("HTTP/1.1 401"), "{auth:?}: {r}");
         assert!(r.to_ascii_lowercase().contains("www-authenticate: basic realm=\"riskbound\""), "{r}");
     }
+    // The status page is behind the same credentials and TLS.
+    let page = get(port, &cert, v12, "/", Some(&basic("scraper", "right horse"))).unwrap();
+    assert!(page.starts_with("HTTP/1.1 200") && page.contains("riskbound status"), "{page}");
+    assert!(page.to_ascii_lowercase().contains("content-security-policy: default-src 'none'"), "{page}");
+    assert!(get(port, &cert, v12, "/", None).unwrap().starts_with("HTTP/1.1 401"));
     // Probes need no secret.
     assert!(get(port, &cert, v12, "/healthz", None).unwrap().starts_with("HTTP/1.1 200"));
     assert!(get(port, &cert, v12, "/readyz", None).unwrap().starts_with("HTTP/1.1 200"));

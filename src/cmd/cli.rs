@@ -47,6 +47,12 @@ pub enum Command {
     /// Pool every replica's windows, read back through the Prometheus HTTP API, into fleet-wide
     /// bounds, SLA states and alarms: printed once, or served on /metrics
     Fleet(FleetArgs),
+    /// Write a validator's HTML report of a period from the daemon's state: bounds over time,
+    /// SLA states, alarms, certified slices, every input file with its SHA-256, and the replay
+    Report(super::report::ReportArgs),
+    /// Feed the files a report lists into a new state, as the daemon took them, to reproduce
+    /// the report's numbers
+    Replay(super::replay::ReplayArgs),
     /// Run the daemon on an invented scenario (a parcel-delivery model) at accelerated speed
     Demo(super::demo::DemoArgs),
 }

@@ -38,8 +38,8 @@ pub struct DemoArgs {
     /// Address for /metrics
     #[arg(long, default_value = "127.0.0.1:9417")]
     pub listen: String,
-    /// Folder for the scenario's batch files, config and state (kept); default: a temporary
-    /// folder, removed at the end
+    /// Folder for the scenario's batch files, config, state and report (kept); default: a new
+    /// folder under the system's temporary folder
     #[arg(long, value_name = "DIR")]
     pub dir: Option<PathBuf>,
     /// Simulated days to replay
@@ -69,6 +69,8 @@ fn config_text(listen: &str) -> String {
 listen: \"{listen}\"
 state_dir: state
 rescan_interval: 2s
+# one point per simulated hour for the status page and the report
+history: {{ every: 1h, keep: 90d }}
 models:
   - name: parcel-late
     predictions:
@@ -79,11 +81,13 @@ models:
     confidence: 0.95
     label_wait: 5d
     windows:
-      - {{ name: recent, last: 500 }}
-      - {{ name: day, span: 24h }}
       # the day whose label_wait is over: every label that will come has come
       - {{ name: settled, span: 24h, mature: true }}
+      - {{ name: day, span: 24h }}
+      - {{ name: recent, last: 500 }}
     sla: {{ max_risk: 0.10 }}
+    # which regions and carriers are over the SLA, certified over the whole searched class
+    slices: {{ categorical: [region, carrier], top: 3 }}
     # label-free: have the inputs moved away from those of a healthy period?
     input_shift:
       reference: {{ file: reference-inputs.csv }}
@@ -161,6 +165,22 @@ pub fn table(snap: &Snapshot) -> String {
                 pair(dr.map(|d| d.1)),
                 state
             );
+            if let Some(sl) = &w.slices {
+                for l in sl.top.iter().filter(|l| l.violates) {
+                    let _ = writeln!(
+                        s,
+                        "{:<12} {:<8} slice {} is over the SLA: mean {:.4}, certified lower bound {:.4} > {:.2} ({} certificate, n {})",
+                        "",
+                        "",
+                        l.description,
+                        l.mean,
+                        l.lower,
+                        m.sla.as_ref().map_or(f64::NAN, |x| x.max_risk),
+                        l.certified_by,
+                        l.n
+                    );
+                }
+            }
         }
         let a = &m.anytime;
         if let Some((_, b)) = a.bounds.iter().find(|(q, _)| *q == Sequence::BettingCs) {
@@ -272,9 +292,10 @@ pub fn main(a: &DemoArgs) -> anyhow::Result<()> {
 }
 
 pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
-    let (root, keep) = match &a.dir {
-        Some(d) => (d.clone(), true),
-        None => (std::env::temp_dir().join(format!("riskbound-demo-{}", std::process::id())), false),
+    // Kept after the demo, so that the report it writes can be read.
+    let root = match &a.dir {
+        Some(d) => d.clone(),
+        None => std::env::temp_dir().join(format!("riskbound-demo-{}", std::process::id())),
     };
     let batches = root.join("batches");
     std::fs::create_dir_all(&batches).with_context(|| format!("creating {}", batches.display()))?;
@@ -286,6 +307,7 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
     let url = format!("http://{}/metrics", running.addr);
     println!("riskbound demo: a fictional parcel-delivery model, replayed at {} ms per simulated hour", a.ms_per_hour);
     println!("batch files and config: {}", root.display());
+    println!("status page: http://{}/  (bounds over time, states, alarms, slices)", running.addr);
     println!("scrape: {url}");
     println!(
         "bounds assume i.i.d. predictions within a window and a bounded loss; the delay-robust bounds, which decide"
@@ -303,6 +325,7 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
     let mut pending: Vec<Pending> = Vec::new();
     let hours = i64::from(a.days) * 24;
     let mut next_id = 0u64;
+    let mut shift_told = false;
     for h in 0..hours {
         let t = T0 + h * HOUR;
         let day = h / 24;
@@ -376,20 +399,37 @@ pub fn run(a: &DemoArgs) -> anyhow::Result<()> {
                 }
             );
             print!("{}", table(&snap));
+            let fired = snap.models.iter().any(|m| {
+                m.input_shift.as_ref().and_then(|sh| sh.alarm.as_ref()).is_some_and(|al| al.fired_at.is_some())
+            });
+            if fired && !shift_told {
+                shift_told = true;
+                println!(
+                    "  -> the inputs changed and the label-free alarm says so now, days before the labels of these parcels \
+                     (0.5 to 4 days late) can say whether the model got worse; in this scenario the heavier parcels do it no harm"
+                );
+            }
             println!();
             std::io::stdout().flush()?;
         }
     }
     running.wait_rounds(2, Duration::from_secs(30));
-    println!("replay done. Scrape {url}");
+    let report = root.join("report.html");
+    super::report::main(&super::report::ReportArgs {
+        config: config_path.clone(),
+        model: None,
+        from: None,
+        to: None,
+        state: None,
+        out: report.clone(),
+    })?;
+    println!("replay done. Status page http://{}/ ; scrape {url}", running.addr);
+    println!("the validator's report of the 21 days: {} (the folder is kept; remove it when done)", report.display());
     let result = if a.exit_when_done {
         running.shutdown()
     } else {
         println!("serving until Ctrl-C");
         running.run_until_signal()
     };
-    if !keep {
-        let _ = std::fs::remove_dir_all(&root);
-    }
     result
 }

@@ -77,8 +77,11 @@ fn serve(
         .map_err(|source| crate::app::BindError { addr, source })?;
     let local = listener.local_addr()?;
     let state: crate::export::fleet::SharedFleet = Arc::new(RwLock::new(FleetState::default()));
-    let shared =
-        Arc::new(Shared { registry: crate::export::fleet::registry(state.clone()), ready: AtomicBool::new(false) });
+    let shared = Arc::new(Shared {
+        registry: crate::export::fleet::registry(state.clone()),
+        snapshot: None,
+        ready: AtomicBool::new(false),
+    });
     let stop = Arc::new(tokio::sync::Notify::new());
     let server = server::spawn(
         &runtime,

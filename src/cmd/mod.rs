@@ -10,6 +10,8 @@ pub mod error;
 pub mod fleet;
 pub mod hash_password;
 pub mod input_shift;
+pub mod replay;
+pub mod report;
 pub mod reset;
 pub mod rules;
 pub mod run;

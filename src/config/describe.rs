@@ -29,6 +29,11 @@ impl Config {
             None => "state_max_size: none (the volume's size is the limit)\n".to_string(),
         };
         s += &format!(
+            "history: a point per model every {}s of event time, kept {}s (the status page at / and `riskbound report` read it)\n",
+            self.history.every_ms / 1000,
+            self.history.keep_ms / 1000
+        );
+        s += &format!(
             "web: {}, basic auth {}\n",
             if self.web.tls.is_some() { "TLS" } else { "plain HTTP" },
             if self.web.users.is_empty() { "off".to_string() } else { format!("for {} user(s)", self.web.users.len()) }

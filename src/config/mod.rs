@@ -24,6 +24,7 @@ use crate::loss::LossSpec;
 mod alerts;
 mod check;
 mod describe;
+mod history;
 mod http;
 mod input_shift;
 mod model;
@@ -216,6 +217,7 @@ fn parse_checked(text: &str, path: &Path, check_dirs: bool) -> Result<Config, Co
         None => 86_400_000,
         Some(f) => c.duration_ms(f, "future_tolerance").unwrap_or(86_400_000),
     };
+    let history = c.history(raw.history.as_ref());
     if raw.models.value.is_empty() {
         c.push(&raw.models, "models", "at least one model is needed");
     }
@@ -243,6 +245,7 @@ fn parse_checked(text: &str, path: &Path, check_dirs: bool) -> Result<Config, Co
         http,
         memory_limit_bytes,
         state_max_bytes,
+        history,
         models,
         web: web::WebConfig::plain(),
     })

@@ -19,7 +19,15 @@ pub(super) struct RawConfig {
     pub(super) max_header_bytes: Option<Spanned<i64>>,
     pub(super) memory_limit: Option<Spanned<String>>,
     pub(super) state_max_size: Option<Spanned<String>>,
+    pub(super) history: Option<Spanned<RawHistory>>,
     pub(super) models: Spanned<Vec<RawModel>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(super) struct RawHistory {
+    pub(super) every: Option<Spanned<String>>,
+    pub(super) keep: Option<Spanned<String>>,
 }
 
 #[derive(Deserialize)]

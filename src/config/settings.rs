@@ -25,9 +25,26 @@ pub struct Config {
     /// refused as on a full disk, so riskbound pauses its ingest before an emptyDir's sizeLimit
     /// would make the kubelet evict the whole pod, model and all.
     pub state_max_bytes: Option<u64>,
+    /// The evaluation history's retention (the status page and the report read it).
+    pub history: HistoryConfig,
     pub models: Vec<ModelConfig>,
     /// TLS and basic auth of the HTTP surface (from `--web-config`; plain HTTP by default).
     pub web: super::web::WebConfig,
+}
+
+/// The evaluation history: a point per model whenever its event clock (the newest event time
+/// it has taken) enters a new `every`, kept while it is within `keep` of that clock.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct HistoryConfig {
+    pub every_ms: i64,
+    pub keep_ms: i64,
+}
+
+impl Default for HistoryConfig {
+    /// An hourly point for 90 days: 2160 points per model.
+    fn default() -> Self {
+        HistoryConfig { every_ms: 3_600_000, keep_ms: 90 * 86_400_000 }
+    }
 }
 
 /// One monitored model.

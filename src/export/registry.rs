@@ -25,6 +25,9 @@ pub type SharedSnapshot = Arc<RwLock<Arc<Snapshot>>>;
 pub struct Health {
     /// Commits refused by the state database (disk full, read-only, I/O errors).
     pub state_write_failures: std::sync::atomic::AtomicU64,
+    /// History points that could not be written (skipped; the history is for people and never
+    /// holds up ingest).
+    pub history_write_failures: std::sync::atomic::AtomicU64,
     /// 1 while the last commit attempt failed, 0 once commits succeed again.
     pub state_unwritable: std::sync::atomic::AtomicBool,
     /// The HTTP listener's connection counts.
@@ -60,6 +63,7 @@ pub mod names {
     pub const LAST_INGEST: &str = "riskbound_last_ingest_timestamp_seconds";
     pub const BUILD_INFO: &str = "riskbound_build_info";
     pub const WRITE_FAILURES: &str = "riskbound_state_write_failures";
+    pub const HISTORY_FAILURES: &str = "riskbound_history_write_failures";
     pub const UNWRITABLE: &str = "riskbound_state_unwritable";
     pub const SHIFT_P: &str = "riskbound_input_shift_p_value";
     pub const SHIFT_SHIFTED: &str = "riskbound_input_shift_shifted";
@@ -594,6 +598,12 @@ impl Collector for SnapshotCollector {
             "Batch-file commits the state database refused (disk full, read-only, I/O error); each is retried",
             [(Labels::new(), self.health.state_write_failures.load(SeqCst))],
         )?;
+        counters(
+            e,
+            names::HISTORY_FAILURES,
+            "Evaluation-history points that could not be written and were skipped (the status page and report miss them; ingest goes on)",
+            [(Labels::new(), self.health.history_write_failures.load(SeqCst))],
+        )?;
         gauges(
             e,
             names::UNWRITABLE,
@@ -694,7 +704,7 @@ mod tests {
     #[test]
     fn awkward_label_values_are_escaped() {
         let model = ModelSnapshot {
-            name: "a\"b\\c\nd".into(),
+            name: "a\"b\\c\nd<script>x</script>".into(),
             confidence: 0.95,
             loss_max: 1.0,
             loss_name: "zero-one",
@@ -730,11 +740,23 @@ mod tests {
             last_commit_ms: None,
             delay_dependence: crate::estimate::delay_dependence::test(&[], 1.0, true, 0.05),
             input_shift: None,
+            history: Default::default(),
+            event_clock_ms: None,
         };
+        // The status page escapes the same hostile names (config validation is not its guard).
+        let page = super::super::page::render(&Snapshot { models: vec![model.clone()] }, 0);
+        assert!(!page.contains("<script>x") && page.contains("&lt;script&gt;x&lt;/script&gt;"), "{page}");
+        assert!(page.contains("w&quot;1") && !page.contains("w\"1"));
         let snap: SharedSnapshot = Arc::new(RwLock::new(Arc::new(Snapshot { models: vec![model] })));
         let text = render(&registry(snap, Arc::new(Health::default()), 64));
-        assert!(text.contains(r#"riskbound_window_samples{model="a\"b\\c\nd",window="w\"1"} 3"#), "{text}");
-        assert!(!text.lines().any(|l| l == "d\",window=\"w\\\"1\"} 3"), "no raw newline inside a label");
+        assert!(
+            text.contains(r#"riskbound_window_samples{model="a\"b\\c\nd<script>x</script>",window="w\"1"} 3"#),
+            "{text}"
+        );
+        assert!(
+            !text.lines().any(|l| l == "d<script>x</script>\",window=\"w\\\"1\"} 3"),
+            "no raw newline inside a label"
+        );
         // tests/exposition_check.sh runs promtool on this file too.
         let out = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("target/awkward-labels.prom");
         std::fs::write(out, &text).unwrap();

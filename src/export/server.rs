@@ -1,4 +1,5 @@
-//! The HTTP surface: GET /metrics (Prometheus text format 0.0.4), GET /healthz (the process
+//! The HTTP surface: GET /metrics (Prometheus text format 0.0.4), GET / (the status page, from
+//! the same snapshot), GET /healthz (the process
 //! runs), GET /readyz (200 once the committed state has been resumed and published, and from
 //! then on for good; 503 before). Every other path is 404, and other methods on these paths 405.
 //!
@@ -31,6 +32,9 @@ use prometheus_client::registry::Registry;
 /// What the handlers share.
 pub struct Shared {
     pub registry: Registry,
+    /// The snapshot the registry encodes, for the status page (None: no page, as in the fleet
+    /// view, whose report is its /metrics).
+    pub snapshot: Option<super::registry::SharedSnapshot>,
     /// Set once the state is resumed; cleared while the state volume refuses writes.
     pub ready: AtomicBool,
 }
@@ -38,6 +42,27 @@ pub struct Shared {
 async fn metrics(State(s): State<Arc<Shared>>) -> impl IntoResponse {
     let body = super::registry::render(&s.registry);
     ([(header::CONTENT_TYPE, "text/plain; version=0.0.4; charset=utf-8")], body)
+}
+
+/// Only inline styles may load: the page runs no script and fetches nothing, whatever a
+/// hostile name in it might try.
+const PAGE_POLICY: &str =
+    "default-src 'none'; style-src 'unsafe-inline'; img-src data:; base-uri 'none'; form-action 'none'";
+
+async fn status_page(State(s): State<Arc<Shared>>) -> axum::response::Response {
+    let Some(shared) = &s.snapshot else { return (StatusCode::NOT_FOUND, "not found\n").into_response() };
+    let snap = shared.read().expect("snapshot lock poisoned").clone();
+    let now = std::time::SystemTime::now().duration_since(std::time::UNIX_EPOCH).map_or(0, |d| d.as_millis() as i64);
+    let body = super::page::render(&snap, now);
+    (
+        [
+            (header::CONTENT_TYPE, HeaderValue::from_static("text/html; charset=utf-8")),
+            (header::CONTENT_SECURITY_POLICY, HeaderValue::from_static(PAGE_POLICY)),
+            (header::X_CONTENT_TYPE_OPTIONS, HeaderValue::from_static("nosniff")),
+        ],
+        body,
+    )
+        .into_response()
 }
 
 async fn healthz() -> &'static str {
@@ -52,9 +77,10 @@ async fn readyz(State(s): State<Arc<Shared>>) -> (StatusCode, &'static str) {
     }
 }
 
-/// The router for the three endpoints.
+/// The router for the four endpoints.
 pub fn router(shared: Arc<Shared>) -> Router {
     Router::new()
+        .route("/", get(status_page))
         .route("/metrics", get(metrics))
         .route("/healthz", get(healthz))
         .route("/readyz", get(readyz))

@@ -4,6 +4,7 @@
 //! summarised and bounded, which export/ renders. The only mutable record state lives here, in
 //! [`store::Store`].
 
+pub mod history;
 pub mod shift;
 pub mod store;
 
@@ -13,7 +14,7 @@ use crate::estimate::delay_dependence::{self, DelayDependence};
 use crate::estimate::delay_robust::{self, Cohort};
 use crate::estimate::sla::{self, SlaReason, SlaState};
 use crate::estimate::{self, Bounds, Confidence, LossSummary, Method};
-pub use store::{Batch, CohortRange, Counters, FileOutcome, Kind, Store, StoreError, TrackerState};
+pub use store::{Batch, CohortRange, Counters, FileOutcome, Kind, Store, StoreError, TakenFile, TrackerState};
 
 /// The anytime alarms. The names are the `test` label values.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -308,6 +309,11 @@ pub struct ModelSnapshot {
     /// The label-free input-shift tests, if configured (filled by the pipeline from its latest
     /// look: a look is too costly for every publish).
     pub input_shift: Option<shift::ShiftSnapshot>,
+    /// The evaluation history kept for the status page (filled by the pipeline, which holds it
+    /// in memory: the page never reads the database).
+    pub history: std::sync::Arc<Vec<history::HistoryPoint>>,
+    /// The model's event clock: the newest event time (ms) it has taken.
+    pub event_clock_ms: Option<i64>,
 }
 
 /// The newest labelled samples (by prediction time) the delay-dependence test reads: enough for
@@ -443,5 +449,7 @@ pub fn model_snapshot(store: &Store, model: &ModelConfig, evaluation: u64) -> Re
         counters,
         delay_dependence,
         input_shift: None,
+        history: Default::default(),
+        event_clock_ms: store.watermark(&model.name)?,
     })
 }

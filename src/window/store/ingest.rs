@@ -122,6 +122,7 @@ impl Store {
                 out.first_reject = Some(r);
             }
         };
+        let mut span: Option<(i64, i64)> = None;
         for r in rejects {
             reject(&mut out, r.clone());
         }
@@ -139,6 +140,9 @@ impl Store {
                     out.rows_ok += 1;
                     out.joined += u64::from(joined);
                     watermark = watermark.max(rec.time_ms);
+                    span = Some(
+                        span.map_or((rec.time_ms, rec.time_ms), |(a, b)| (a.min(rec.time_ms), b.max(rec.time_ms))),
+                    );
                 }
                 Err(reason) => {
                     let message = format!("{name}:{}: id {:?}: {reason}", rec.line, rec.id);
@@ -154,6 +158,7 @@ impl Store {
              VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
             params![m, kind.as_str(), hash, name, out.rows_ok as i64, bad as i64, now_ms, batch.size, batch.mtime_ns],
         )?;
+        insert_file_detail(&tx, m, kind, hash, span, &out.rejected)?;
         tx.execute(
             "INSERT INTO model_meta (model, watermark, last_commit_ms, expired_to) VALUES (?1, ?2, ?3, ?4)
              ON CONFLICT (model) DO UPDATE SET watermark = excluded.watermark, last_commit_ms = excluded.last_commit_ms,

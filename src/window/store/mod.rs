@@ -18,6 +18,7 @@ pub use crate::ingest::records::Kind;
 use crate::ingest::records::{Record, Reject, RejectReason};
 use crate::loss::{self, LossSpec};
 
+mod history;
 mod ingest;
 mod ranges;
 mod schema;
@@ -25,6 +26,8 @@ mod shift;
 mod tracker;
 mod views;
 
+pub use history::TakenFile;
+use history::*;
 use ranges::*;
 pub use ranges::{level_of, sample_level, LEVELS, SAMPLE_SEED};
 use schema::*;

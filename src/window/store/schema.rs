@@ -39,6 +39,13 @@ CREATE INDEX IF NOT EXISTS shift_point_level ON shift_point (model, level, t_pre
 CREATE TABLE IF NOT EXISTS shift_alarm (
     model TEXT PRIMARY KEY, fingerprint TEXT NOT NULL, next INTEGER NOT NULL, state TEXT,
     unpaired INTEGER NOT NULL DEFAULT 0);
+CREATE TABLE IF NOT EXISTS file_detail (
+    model TEXT NOT NULL, kind TEXT NOT NULL, hash TEXT NOT NULL, t_first INTEGER, t_last INTEGER,
+    rejects TEXT NOT NULL,
+    PRIMARY KEY (model, kind, hash)) WITHOUT ROWID;
+CREATE TABLE IF NOT EXISTS history (
+    model TEXT NOT NULL, bucket INTEGER NOT NULL, t_ms INTEGER NOT NULL, point TEXT NOT NULL,
+    PRIMARY KEY (model, bucket)) WITHOUT ROWID;
 CREATE TABLE IF NOT EXISTS tracker (
     model TEXT PRIMARY KEY, state TEXT, reset_ms INTEGER, resets INTEGER NOT NULL DEFAULT 0);
 ";

@@ -23,7 +23,12 @@ use crate::ingest::reader::{CappedLines, Hashing};
 use crate::ingest::records::{decode_records, Columns, Reject, RejectReason};
 use crate::ingest::watch::{self, Candidate};
 use crate::ingest::{DecodeErrorKind, Format};
+use crate::window::history::HistoryPoint;
 use crate::window::{self, Batch, Kind, Snapshot, Store, StoreError};
+
+mod history;
+use history::evaluation;
+pub use history::replay;
 
 /// A running daemon.
 pub struct Running {
@@ -86,26 +91,39 @@ struct Pipeline {
     /// Each model's latest input-shift look (a look costs up to seconds, so it is kept and
     /// repeated only `every` of event time later; after a restart the first publish looks).
     looks: HashMap<String, window::shift::ShiftLook>,
+    /// Each model's evaluation history (bounded by `history.keep`), shared with the snapshot.
+    history: HashMap<String, Arc<Vec<HistoryPoint>>>,
 }
 
 impl Pipeline {
+    fn new(
+        config: Config,
+        store: Store,
+        snapshot: SharedSnapshot,
+        health: Arc<Health>,
+        needs_reopen: bool,
+    ) -> Pipeline {
+        Pipeline {
+            config,
+            store,
+            snapshot,
+            health,
+            settled: HashMap::new(),
+            rounds_begun: 0,
+            resets_seen: 0,
+            needs_reopen,
+            looks: HashMap::new(),
+            history: HashMap::new(),
+        }
+    }
+
     fn publish(&mut self) -> anyhow::Result<()> {
         let mut models = Vec::with_capacity(self.config.models.len());
         for m in &self.config.models {
-            let k = if m.window_guarantee == WindowGuarantee::Spent {
-                match self.store.next_evaluation(&m.name) {
-                    Ok(k) => k,
-                    Err(e) if e.is_disk() => {
-                        // Without a durable k, a restart could reuse δ_k: keep the last snapshot.
-                        tracing::warn!(model = %m.name, error = %e, "cannot record the evaluation count; snapshot not refreshed");
-                        return Ok(());
-                    }
-                    Err(e) => return Err(e.into()),
-                }
-            } else {
-                1
-            };
+            // Keep the last snapshot.
+            let Some(k) = evaluation(&mut self.store, m)? else { return Ok(()) };
             let mut snap = window::model_snapshot(&self.store, m, k)?;
+            snap.history = self.history.get(&m.name).cloned().unwrap_or_default();
             if m.input_shift.is_some() {
                 Self::look_if_due(&mut self.store, &mut self.looks, m);
                 snap.input_shift = window::shift::snapshot(&self.store, m, self.looks.get(&m.name))
@@ -285,6 +303,8 @@ impl Pipeline {
             tracing::debug!(file = %c.path.display(), "content already taken");
             return Ok(Some(false));
         }
+        self.close_bucket_before(c.model, records.iter().map(|r| r.time_ms).max());
+        let model = &self.config.models[c.model];
         let batch = Batch {
             kind: c.kind,
             name: &label,
@@ -383,6 +403,7 @@ impl Pipeline {
                 self.store = store;
                 self.needs_reopen = false;
                 self.settle_taken()?;
+                self.resume_history()?;
                 if self.health.state_unwritable.swap(false, Ordering::SeqCst) {
                     tracing::info!("state database accepts writes again; resuming ingest");
                 }
@@ -465,6 +486,7 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
     });
     let shared = Arc::new(Shared {
         registry: registry::registry(snapshot.clone(), health.clone(), config.http.max_connections),
+        snapshot: Some(snapshot.clone()),
         ready: AtomicBool::new(false),
     });
     let server_stop = Arc::new(tokio::sync::Notify::new());
@@ -478,7 +500,7 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         listener_stats.clone(),
         server_stop.clone(),
     );
-    tracing::info!(%addr, scheme, basic_auth = !config.web.users.is_empty(), "serving /metrics, /healthz, /readyz");
+    tracing::info!(%addr, scheme, basic_auth = !config.web.users.is_empty(), "serving / (status page), /metrics, /healthz, /readyz");
 
     // A volume that refuses writes (read-only, full, failing) does not stop the daemon: it
     // serves the committed state read-only and opens the state for writing as soon as the
@@ -498,22 +520,13 @@ pub fn start(config: Config) -> anyhow::Result<Running> {
         }
         Err(e) => return Err(e.into()),
     };
-    let mut pipeline = Pipeline {
-        config: config.clone(),
-        store,
-        snapshot: snapshot.clone(),
-        health,
-        settled: HashMap::new(),
-        rounds_begun: 0,
-        resets_seen: 0,
-        needs_reopen: !writable,
-        looks: HashMap::new(),
-    };
+    let mut pipeline = Pipeline::new(config.clone(), store, snapshot.clone(), health, !writable);
     // Resume: the snapshot of the committed state is published before anything new is read,
     // and only then is the daemon ready. Ready is a latch: it never turns back, whatever the
     // state volume does later (its trouble shows in riskbound_state_unwritable and the page
     // alert), because a sidecar that is not ready takes its model's pod out of the Service.
     pipeline.settle_taken()?;
+    pipeline.resume_history()?;
     pipeline.publish()?;
     shared.ready.store(true, Ordering::SeqCst);
     tracing::info!(state = %config.state_dir.display(), writable, "state resumed; ready");
