@@ -139,7 +139,11 @@ pub struct ChartPoint {
 
 /// A window's chart points from the history: the deciding band (the SLA's method on the
 /// bounds the SLA decides on; without an SLA, the labelled Clopper-Pearson or Hoeffding band).
-pub fn chart_points(history: &[HistoryPoint], window: &str, band: &BandChoice) -> Vec<ChartPoint> {
+pub fn chart_points<'a>(
+    history: impl IntoIterator<Item = &'a HistoryPoint>,
+    window: &str,
+    band: &BandChoice,
+) -> Vec<ChartPoint> {
     let mut out = Vec::new();
     let mut seen_fired: Vec<String> = Vec::new();
     for p in history {

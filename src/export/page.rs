@@ -9,6 +9,7 @@ use std::fmt::Write as _;
 use super::html::{self, chart, chart_points, esc, num, num_cell, state_badge, time_str, BandChoice};
 use crate::config::DecideOn;
 use crate::estimate::Bounds;
+use crate::window::history::HistoryPoint;
 use crate::window::{ModelSnapshot, SliceLine, Snapshot, WindowSnapshot};
 
 /// The page for a snapshot. `now_ms` is when it was rendered (shown, not used in numbers).
@@ -75,8 +76,9 @@ fn model_section(s: &mut String, m: &ModelSnapshot) {
     );
     overview(s, m, &band);
     cautions(s, m);
+    let now = HistoryPoint::now(m);
     for w in &m.windows {
-        window_section(s, m, w, &band);
+        window_section(s, m, w, &band, now.as_ref());
     }
     anytime_section(s, m);
     if let Some(sh) = &m.input_shift {
@@ -161,7 +163,13 @@ fn bound_of(b: &[(crate::estimate::Method, Bounds)], method: crate::estimate::Me
     b.iter().find(|(k, _)| *k == method).map(|(_, b)| *b)
 }
 
-fn window_section(s: &mut String, m: &ModelSnapshot, w: &WindowSnapshot, band: &BandChoice) {
+fn window_section(
+    s: &mut String,
+    m: &ModelSnapshot,
+    w: &WindowSnapshot,
+    band: &BandChoice,
+    now: Option<&HistoryPoint>,
+) {
     let (state, reason) = match w.state {
         Some((st, why)) => (Some(st.as_str()), why.describe()),
         None => (None, ""),
@@ -205,7 +213,7 @@ fn window_section(s: &mut String, m: &ModelSnapshot, w: &WindowSnapshot, band: &
         s.push_str("</tr>");
     }
     s.push_str("</tbody></table>");
-    let points = chart_points(&crate::window::history::HistoryPoint::with_now(m), &w.name, band);
+    let points = chart_points(m.history.iter().chain(now), &w.name, band);
     let title = format!("{} / {}: {} over time", m.name, w.name, band.describe());
     s.push_str(&chart(&format!("c-{}-{}", m.name, w.name), &title, &points, m.sla.as_ref().map(|x| x.max_risk)));
     if let Some(sl) = &w.slices {

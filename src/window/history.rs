@@ -133,16 +133,11 @@ impl HistoryPoint {
         HistoryPoint { t_ms, windows, alarms, label_coverage: s.label_coverage, awaiting: s.awaiting }
     }
 
-    /// The kept history and then, when the clock has moved past its last point, the snapshot
-    /// itself as the newest point: what the charts draw.
-    pub fn with_now(s: &ModelSnapshot) -> Vec<HistoryPoint> {
-        let mut v = s.history.as_ref().clone();
-        if let Some(t) = s.event_clock_ms {
-            if v.last().is_none_or(|p| p.t_ms < t) {
-                v.push(HistoryPoint::of(s, t));
-            }
-        }
-        v
+    /// The snapshot itself as the newest point, when the clock has moved past the last kept
+    /// one: the charts draw the kept history and then this (read in place, not copied).
+    pub fn now(s: &ModelSnapshot) -> Option<HistoryPoint> {
+        let t = s.event_clock_ms?;
+        s.history.last().is_none_or(|p| p.t_ms < t).then(|| HistoryPoint::of(s, t))
     }
 
     pub fn to_json(&self) -> String {
