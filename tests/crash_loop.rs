@@ -158,12 +158,7 @@ fn history_replays_exactly(dir: &TempDir, cfg: &std::path::Path, archive: &std::
         "--out",
         second.to_str().unwrap(),
     ]);
-    let numbers = |p: &std::path::Path| {
-        let html = std::fs::read_to_string(p).unwrap();
-        let start = html.find("<section id=\"numbers\">").unwrap();
-        let end = html[start..].find("</section>").unwrap() + start;
-        html[start..end].to_string()
-    };
+    let numbers = |p: &std::path::Path| common::report_numbers(&std::fs::read_to_string(p).unwrap()).to_string();
     let (a, b) = (numbers(&first), numbers(&second));
     assert!(a == b, "the history after the kills differs from the replay's");
     let points = a.split(" history points.").next().and_then(|h| h.rsplit(' ').next()).and_then(|n| n.parse().ok());

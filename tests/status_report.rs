@@ -63,11 +63,9 @@ fn riskbound(args: &[&str]) -> std::process::Output {
     Command::new(bin()).args(args).output().unwrap()
 }
 
-/// The `numbers` section of a report.
-fn numbers(html: &str) -> &str {
-    let start = html.find("<section id=\"numbers\">").expect("a numbers section");
-    let end = html[start..].find("</section>").expect("the section ends") + start;
-    &html[start..end]
+/// `riskbound replay --config CFG --files LIST --state STATE`.
+fn replay(cfg: &std::path::Path, list: &str, state: &std::path::Path) -> std::process::Output {
+    riskbound(&["replay", "--config", cfg.to_str().unwrap(), "--files", list, "--state", state.to_str().unwrap()])
 }
 
 /// Every `id="b-..." data-v="..."` cell of the page: (id, value).
@@ -142,7 +140,7 @@ fn page_equals_metrics_and_report_replays_to_the_same_numbers() {
     );
     let config_sha = format!("{:x}", Sha256::digest(std::fs::read(&cfg).unwrap()));
     assert!(report.contains(&config_sha), "the config's SHA-256");
-    let section = numbers(&report);
+    let section = common::report_numbers(&report);
     assert!(
         section.contains("Daily summary") && section.contains("&lt;script&gt;alert(1)&lt;/script&gt;"),
         "{section}"
@@ -152,15 +150,7 @@ fn page_equals_metrics_and_report_replays_to_the_same_numbers() {
     // The replay writes the same numbers.
     let list = format!("{}.replay.tsv", out.display());
     let again_state = dir.path("replayed");
-    let r = riskbound(&[
-        "replay",
-        "--config",
-        cfg.to_str().unwrap(),
-        "--files",
-        &list,
-        "--state",
-        again_state.to_str().unwrap(),
-    ]);
+    let r = replay(&cfg, &list, &again_state);
     assert!(r.status.success(), "{}", String::from_utf8_lossy(&r.stderr));
     let again = dir.path("again.html");
     let r = riskbound(&[
@@ -174,30 +164,14 @@ fn page_equals_metrics_and_report_replays_to_the_same_numbers() {
     ]);
     assert!(r.status.success(), "{}", String::from_utf8_lossy(&r.stderr));
     let replayed = std::fs::read_to_string(&again).unwrap();
-    assert_eq!(numbers(&replayed), section, "the replay's numbers equal the report's");
+    assert_eq!(common::report_numbers(&replayed), section, "the replay's numbers equal the report's");
 
     // A replay into a folder that holds a state, or of a file changed since, is refused.
-    let r = riskbound(&[
-        "replay",
-        "--config",
-        cfg.to_str().unwrap(),
-        "--files",
-        &list,
-        "--state",
-        again_state.to_str().unwrap(),
-    ]);
+    let r = replay(&cfg, &list, &again_state);
     assert_eq!(r.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&r.stderr).contains("already holds a riskbound state"));
     std::fs::write(dir.path("in").join("label-002.csv"), "id,t,y\n").unwrap();
-    let r = riskbound(&[
-        "replay",
-        "--config",
-        cfg.to_str().unwrap(),
-        "--files",
-        &list,
-        "--state",
-        dir.path("x").to_str().unwrap(),
-    ]);
+    let r = replay(&cfg, &list, &dir.path("x"));
     assert_eq!(r.status.code(), Some(2));
     let err = String::from_utf8_lossy(&r.stderr);
     assert!(err.contains(".replay.tsv:") && err.contains("label-002.csv: SHA-256 is"), "{err}");

@@ -113,7 +113,6 @@ pub fn main(a: &ReportArgs) -> anyhow::Result<()> {
     let store = Store::open_read_only(&state_dir)
         .ok_or_else(|| CliError::Usage(format!("no riskbound state in {}", state_dir.display())))?;
     let mut reports = Vec::new();
-    let mut all_files = Vec::new();
     for m in &models {
         let mut history: Vec<HistoryPoint> = store
             .history(&m.name, from.unwrap_or(i64::MIN), to.unwrap_or(i64::MAX))?
@@ -126,7 +125,8 @@ pub fn main(a: &ReportArgs) -> anyhow::Result<()> {
         reports.push(ModelReport { config: m, history });
     }
     let one = a.model.as_deref();
-    all_files.extend(store.taken_files(one)?.into_iter().filter(|f| models.iter().any(|m| m.name == f.model)));
+    let all_files: Vec<TakenFile> =
+        store.taken_files(one)?.into_iter().filter(|f| models.iter().any(|m| m.name == f.model)).collect();
     let (files, replay_files) = period_files(&all_files, from, to);
     let manifest = PathBuf::from(format!("{}.replay.tsv", a.out.display()));
     write_manifest(&manifest, &all_files[..replay_files])?;

@@ -44,6 +44,11 @@ pub fn num_cell(x: f64) -> String {
     format!("<td class=\"n\" data-v=\"{}\">{}</td>", x, num(x))
 }
 
+/// [`num_cell`] with an id, for the cells a test looks up by name.
+pub fn num_cell_id(id: &str, x: f64) -> String {
+    format!("<td id=\"{}\" class=\"n\" data-v=\"{}\">{}</td>", esc(id), x, num(x))
+}
+
 /// Milliseconds since the epoch as `2026-11-02 14:00 UTC`.
 pub fn time_str(ms: i64) -> String {
     match time::OffsetDateTime::from_unix_timestamp(ms.div_euclid(1000)) {

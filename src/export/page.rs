@@ -204,7 +204,7 @@ fn window_section(
                 Some(b) => {
                     for (edge, v) in [("lower", b.lower), ("upper", b.upper)] {
                         let id = format!("b-{}-{}-{set}-{}-{edge}", m.name, w.name, method.name());
-                        let _ = write!(s, "{}", num_cell(v).replacen("<td", &format!("<td id=\"{}\"", esc(&id)), 1));
+                        s.push_str(&html::num_cell_id(&id, v));
                     }
                 }
                 None => s.push_str("<td>-</td><td>-</td>"),

@@ -274,3 +274,10 @@ impl Metrics {
         self.0.get(&(name.to_string(), want)).copied()
     }
 }
+
+/// The `numbers` section of a `riskbound report` page: what a replay must write again.
+pub fn report_numbers(html: &str) -> &str {
+    let start = html.find("<section id=\"numbers\">").expect("a numbers section");
+    let end = html[start..].find("</section>").expect("the section ends") + start;
+    &html[start..end]
+}

@@ -63,14 +63,6 @@ impl Store {
             .flatten())
     }
 
-    /// The bucket of the newest history point, if any.
-    pub fn history_last_bucket(&self, model: &str) -> Result<Option<i64>, StoreError> {
-        Ok(self
-            .conn
-            .prepare_cached("SELECT MAX(bucket) FROM history WHERE model = ?1")?
-            .query_row([model], |r| r.get::<_, Option<i64>>(0))?)
-    }
-
     /// Writes one point and drops the model's points older than `keep_from_ms`, in one
     /// transaction.
     pub fn record_history(
